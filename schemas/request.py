@@ -1,0 +1,135 @@
+"""Request bodies: the design request and the analysis request (field names are a contract)."""
+
+from __future__ import annotations
+
+import math
+
+from marshmallow import Schema, ValidationError, fields, post_load, validates_schema
+from marshmallow.validate import Length, OneOf, Range
+
+from schemas.circuit import CircuitSchema, SupplySchema
+from schemas.extras import ResponseOptionsSchema, ToleranceOptionsSchema
+from schemas.fields import StrictBoolean, StrictFloat, StrictInteger
+from schemas.opamp import OpAmpField
+from service.engine.eseries import CAPACITOR_SERIES, RESISTOR_SERIES
+from service.engine.ideal import MAX_STAGES
+from service.engine.model import TOPOLOGIES, Components, Signal, Target
+
+#: Agreement asked of ``gain`` and ``gain_db`` when both are given (relative, on the ratio).
+GAIN_AGREEMENT = 1e-6
+#: The frequency range of the model (the corner search spans 1 mHz .. 10 GHz).
+F_RANGE = Range(min=1e-3, max=1e10)
+
+
+class TargetSchema(Schema):
+    gain_db = StrictFloat(validate=Range(min=0, max=300, min_inclusive=False))
+    gain = StrictFloat(validate=Range(min=1, max=1e15, min_inclusive=False))
+    f_low_hz = StrictFloat(required=True, validate=Range(min=0, max=1e10))
+    f_high_hz = StrictFloat(required=True, validate=F_RANGE)
+    gain_tolerance_db = StrictFloat(load_default=0.5, validate=Range(min=0, max=60,
+                                                                     min_inclusive=False))
+
+    @validates_schema
+    def _consistent(self, data, **kwargs):
+        has_db, has_ratio = "gain_db" in data, "gain" in data
+        if not has_db and not has_ratio:
+            raise ValidationError("give gain_db or gain", "gain_db")
+        if has_db and has_ratio:
+            from_db = 10.0 ** (data["gain_db"] / 20.0)
+            if abs(from_db / data["gain"] - 1.0) > GAIN_AGREEMENT:
+                raise ValidationError(
+                    f"gain {data['gain']:g} and gain_db {data['gain_db']:g} disagree "
+                    f"(give one, or both within {GAIN_AGREEMENT:g} relative)", "gain")
+        low, high = data.get("f_low_hz"), data.get("f_high_hz")
+        if low is not None and high is not None and low >= high:
+            raise ValidationError(f"f_low_hz ({low:g}) must be below f_high_hz ({high:g})",
+                                  "f_low_hz")
+        if low is not None and 0 < low < 1e-3:
+            raise ValidationError("f_low_hz must be 0 (DC coupled) or at least 1 mHz", "f_low_hz")
+
+    @post_load
+    def _make(self, data, **kwargs) -> Target:
+        gain = data.get("gain")
+        gain_db = data.get("gain_db")
+        if gain is not None:
+            gain_db = 20.0 * math.log10(gain)
+        return Target.from_gain(gain=gain, gain_db=gain_db, f_low_hz=data["f_low_hz"],
+                                f_high_hz=data["f_high_hz"],
+                                gain_tolerance_db=data["gain_tolerance_db"])
+
+
+class SignalSchema(Schema):
+    input_peak_v = StrictFloat(load_default=0.01, validate=Range(min=0, max=1000,
+                                                                 min_inclusive=False))
+    source_impedance_ohm = StrictFloat(load_default=50.0, validate=Range(min=0, max=1e9))
+    load_ohm = StrictFloat(load_default=10_000.0, validate=Range(min=1, max=1e12))
+
+    @post_load
+    def _make(self, data, **kwargs) -> Signal:
+        return Signal(**data)
+
+
+class ComponentsSchema(Schema):
+    resistor_series = fields.String(load_default="E96", validate=OneOf(RESISTOR_SERIES))
+    capacitor_series = fields.String(load_default="E12", validate=OneOf(CAPACITOR_SERIES))
+    resistor_tolerance_pct = StrictFloat(load_default=1.0, validate=Range(min=0, max=50))
+    capacitor_tolerance_pct = StrictFloat(load_default=10.0, validate=Range(min=0, max=80))
+    impedance_ohm = StrictFloat(load_default=10_000.0, validate=Range(min=10, max=1e7))
+
+    @post_load
+    def _make(self, data, **kwargs) -> Components:
+        return Components(**data)
+
+
+class StagesField(fields.Field):
+    """``"auto"`` or an integer 1..12."""
+
+    default_error_messages = {"invalid": f'Give "auto" or an integer from 1 to {MAX_STAGES}.'}
+
+    def _deserialize(self, value, attr, data, **kwargs):
+        if value == "auto":
+            return None
+        if isinstance(value, bool) or not isinstance(value, int) or not 1 <= value <= MAX_STAGES:
+            raise self.make_error("invalid")
+        return value
+
+
+
+
+class DesignRequestSchema(Schema):
+    name = fields.String(validate=Length(max=80), allow_none=True)
+    target = fields.Nested(TargetSchema, required=True)
+    supply = fields.Nested(SupplySchema, required=True)
+    signal = fields.Nested(SignalSchema, load_default=lambda: Signal())
+    opamp = OpAmpField(required=True)
+    topology = fields.String(load_default="non_inverting", validate=OneOf(TOPOLOGIES))
+    stages = StagesField(load_default=None)
+    components = fields.Nested(ComponentsSchema, load_default=lambda: Components())
+    strict = StrictBoolean(load_default=False)
+    tolerance = fields.Nested(ToleranceOptionsSchema)
+    response = fields.Nested(ResponseOptionsSchema)
+    temperature_k = StrictFloat(load_default=300.0, validate=Range(min=1, max=1000))
+    supply_rejection_hz = StrictFloat(validate=F_RANGE)
+
+
+class AnalysisToleranceSchema(ToleranceOptionsSchema):
+    """For /v1/analyses the passive tolerances must be given (there is no request
+    ``components`` block to take them from)."""
+
+    resistor_tolerance_pct = StrictFloat(required=True, validate=Range(min=0, max=50))
+    capacitor_tolerance_pct = StrictFloat(required=True, validate=Range(min=0, max=80))
+
+
+class AnalysisRequestSchema(Schema):
+    name = fields.String(validate=Length(max=80), allow_none=True)
+    circuit = fields.Nested(CircuitSchema, required=True)
+    input_peak_v = StrictFloat(load_default=0.01, validate=Range(min=0, max=1000,
+                                                                 min_inclusive=False))
+    target = fields.Nested(TargetSchema, allow_none=True, load_default=None)
+    tolerance = fields.Nested(AnalysisToleranceSchema)
+    response = fields.Nested(ResponseOptionsSchema)
+    temperature_k = StrictFloat(load_default=300.0, validate=Range(min=1, max=1000))
+    supply_rejection_hz = StrictFloat(validate=F_RANGE)
+
+
+__all__ = ["DesignRequestSchema", "AnalysisRequestSchema", "TargetSchema", "StrictInteger"]

@@ -1,0 +1,482 @@
+"""Synthesis: from a target to a complete circuit of E-series parts.
+
+Steps for a stage count n (``synthesize``):
+
+1. **Gains.** Each stage aims at ``g = G**(1/n)``. Feedback pairs come from the resistor
+   series, with the impedance-level resistor (``r_feedback_ohm`` non-inverting, ``r_in_ohm``
+   inverting) within a decade centred on ``impedance_ohm``; stages 1..n-1 take the pair
+   nearest ``g``, the last stage the pair nearest what the product still needs. The as-built
+   midband gain (source divider, finite A0 and all) is then measured on the nodal model
+   and the last pair re-chosen, so the *product* lands on the target.
+2. **Low corner.** The m high-pass poles (coupling ``(Rs+Rb) Cc`` or ``(Rs+Rin) Cc``,
+   ground leg ``Rg Cg``, output ``RL Cout``) start equal at ``f_low sqrt(2**(1/m) - 1)``
+   (the shrinkage rule of ``ideal``). A common scale factor sigma moves them all; for each
+   sigma on a grid, capacitors are rounded *up* to the capacitor series and the bias
+   resistor is re-tuned from the resistor series to restore its pole. All sigmas are solved
+   at once; the largest sigma (smallest capacitors) whose as-built f_low meets the target
+   wins, verified on the full model.
+3. **Bias** (single supply): a divider from the resistor series sets VMID at the centre of
+   the output swing window; VMID is buffered by a spare op-amp unit when a package has one
+   (and the part is unity-gain stable), else the divider is bypassed, the bypass grown until
+   the response is free of low-frequency peaking, and buffered as a last resort.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+from functools import lru_cache
+
+import numpy as np
+
+from service.engine import chain, eseries, ideal
+from service.engine.analysis import AsBuilt, as_built, flat_outside_band
+from service.engine.errors import EngineError
+from service.engine.model import (
+    DUAL,
+    INVERTING,
+    NON_INVERTING,
+    Bias,
+    Circuit,
+    DesignRequest,
+    Stage,
+)
+
+TWO_PI = 2.0 * math.pi
+#: Scale factors tried for the low-side poles (sigma), log-spaced; 6 % apart, finer than
+#: one E12 step, so the rounding of capacitors rather than the grid sets the result.
+SIGMA_GRID = np.geomspace(0.02, 4.0, 92)
+#: Margin kept below the target f_low by the sigma search (the full check follows).
+F_LOW_MARGIN = 1e-3
+#: The bias node's own pole sits this far below the lowest signal pole to begin with.
+BYPASS_POLE_RATIO = 20.0
+#: Growth of the bypass capacitor per attempt, and the attempts before buffering.
+BYPASS_GROWTH = 3.3
+BYPASS_ATTEMPTS = 5
+#: Gain-correction passes (each re-chooses the last stage's pair).
+GAIN_PASSES = 3
+
+
+@dataclass(frozen=True)
+class Synthesis:
+    circuit: Circuit
+    as_built: AsBuilt
+    bias_reason: str | None
+
+
+@lru_cache(maxsize=16)
+def _series_values(series: str) -> np.ndarray:
+    return eseries.values_between(series, 1e-13, 1e9)
+
+
+def _round_up(series: str, x: np.ndarray) -> np.ndarray:
+    v = _series_values(series)
+    i = np.searchsorted(v, np.asarray(x) * (1 - 1e-12), side="left")
+    return v[np.minimum(i, v.size - 1)]
+
+
+def _nearest(series: str, x: np.ndarray) -> np.ndarray:
+    v = _series_values(series)
+    x = np.asarray(x)
+    i = np.clip(np.searchsorted(v, x), 1, v.size - 1)
+    lo, hi = v[i - 1], v[i]
+    return np.where(np.log(x / lo) <= np.log(hi / x), lo, hi)
+
+
+def gain_candidates(series: str, gain: float, topology: str, impedance_ohm: float,
+                    r_extra_ohm: float = 0.0, spread: float = 0.06):
+    """E-series feedback pairs whose stage gain lies within ``spread`` of ``gain``.
+
+    Non-inverting: ``g = 1 + Rf/Rg``; inverting: ``g = Rf / (Rin + r_extra)`` where
+    ``r_extra`` is the source impedance in front of stage 1. The impedance-level resistor
+    (Rf, or Rin) ranges over one decade centred on ``impedance_ohm``. Returns arrays
+    ``(gain, r_feedback_ohm, r_other_ohm)`` sorted by the distance of the gain from
+    ``gain``, then by the level resistor's distance from ``impedance_ohm``.
+    """
+    level = eseries.values_between(series, impedance_ohm / math.sqrt(10),
+                                   impedance_ohm * math.sqrt(10))
+    level2 = np.concatenate([level, level])
+    if topology == NON_INVERTING:
+        other = level / max(gain - 1.0, 1e-6)
+        cands = np.concatenate([_round_down_vec(series, other), _round_up(series, other)])
+        rf, r2 = level2, cands
+        g = 1.0 + rf / r2
+    else:
+        other = gain * (level + r_extra_ohm)
+        cands = np.concatenate([_round_down_vec(series, other), _round_up(series, other)])
+        rf, r2 = cands, level2
+        g = rf / (r2 + r_extra_ohm)
+    err = np.abs(np.log(g / gain))
+    closeness = np.abs(np.log(level2 / impedance_ohm))
+    order = np.lexsort((closeness, np.round(err, 12)))
+    keep = order[err[order] <= max(spread, err[order[0]])]
+    return g[keep], rf[keep], r2[keep]
+
+
+def choose_pairs(series: str, gain: float, n: int, topology: str, impedance_ohm: float,
+                 r_source_ohm: float, correction: float = 1.0,
+                 previous: list | None = None) -> list[tuple[float, float]]:
+    """Feedback pairs for n stages whose gain *product* is nearest ``gain / correction``.
+
+    Stages 1..n-2 take the pair nearest ``g = gain**(1/n)``; the last two stages search all
+    combinations of their candidate lists (E96 ratios are quantised in ~2.4 % steps, their
+    pairwise products far more finely), so the product lands within a few 0.01 % of the
+    need. ``correction`` is the measured as-built / ideal-product ratio of a previous pass.
+    """
+    g = gain ** (1.0 / n)
+    extra = [r_source_ohm if (topology == INVERTING and k == 0) else 0.0 for k in range(n)]
+    pairs = []
+    for k in range(max(n - 2, 0)):
+        if previous is not None:
+            pairs.append(previous[k])
+            continue
+        _, rf, r2 = gain_candidates(series, g, topology, impedance_ohm, extra[k])
+        pairs.append((float(rf[0]), float(r2[0])))
+    done = math.prod(_pair_gain(p, topology, r_source_ohm, k) for k, p in enumerate(pairs))
+    need = gain / correction / done
+    if n == 1:
+        ga, rfa, r2a = gain_candidates(series, need, topology, impedance_ohm, extra[0])
+        return [(float(rfa[0]), float(r2a[0]))]
+    rest = need ** 0.5
+    ga, rfa, r2a = gain_candidates(series, rest, topology, impedance_ohm, extra[n - 2])
+    gb, rfb, r2b = gain_candidates(series, rest, topology, impedance_ohm, extra[n - 1])
+    ga, rfa, r2a, gb, rfb, r2b = (a[:40] for a in (ga, rfa, r2a, gb, rfb, r2b))
+    err = np.abs(np.log(ga[:, None] * gb[None, :] / need))
+    i, j = np.unravel_index(np.argmin(np.round(err, 12)), err.shape)
+    return pairs + [(float(rfa[i]), float(r2a[i])), (float(rfb[j]), float(r2b[j]))]
+
+
+def _round_down_vec(series: str, x: np.ndarray) -> np.ndarray:
+    v = _series_values(series)
+    i = np.searchsorted(v, np.asarray(x) * (1 + 1e-12), side="right") - 1
+    return v[np.maximum(i, 0)]
+
+
+def bias_divider(series: str, v_supply: float, v_target: float,
+                 impedance_ohm: float) -> tuple[float, float]:
+    """E-series (r_top, r_bottom) whose divider ratio is nearest ``v_target / v_supply``.
+
+    r_top ranges over a decade centred on twice the impedance level (so the divider's
+    source impedance sits near the impedance level); ties go to the value nearest it.
+    """
+    ratio = v_target / v_supply
+    centre = 2.0 * impedance_ohm
+    tops = eseries.values_between(series, centre / math.sqrt(10), centre * math.sqrt(10))
+    want = tops * ratio / (1.0 - ratio)
+    bottoms = np.concatenate([_round_down_vec(series, want), _round_up(series, want)])
+    tops2 = np.concatenate([tops, tops])
+    err = np.abs(bottoms / (tops2 + bottoms) - ratio)
+    closeness = np.abs(np.log(tops2 / centre))
+    best = np.lexsort((closeness, np.round(err, 12)))[0]
+    return float(tops2[best]), float(bottoms[best])
+
+
+def _midrail_target_v(req: DesignRequest) -> float:
+    op = req.opamp
+    return 0.5 * ((req.supply.v_pos - op.swing_to_pos_v) + op.swing_to_neg_v)
+
+
+def synthesize(req: DesignRequest, n: int) -> Synthesis:
+    """The complete circuit for ``n`` stages (deterministic: a pure function of its inputs)."""
+    comp = req.components
+    topo = req.topology
+    target = req.target
+    rs = req.signal.source_impedance_ohm
+    ac = target.f_low_hz > 0
+    pairs = choose_pairs(comp.resistor_series, target.gain, n, topo, comp.impedance_ohm, rs)
+    bias, bias_reason = _initial_bias(req, n)
+    circuit = None
+    result = None
+    for _ in range(GAIN_PASSES):
+        circuit = _with_low_side(req, pairs, bias) if ac else _dc_circuit(req, pairs)
+        result = as_built(circuit)
+        ideal_product = math.prod(_pair_gain(p, topo, rs, k) for k, p in enumerate(pairs))
+        if abs(math.log(target.gain / result.gain)) < 1e-5:
+            break
+        new = choose_pairs(comp.resistor_series, target.gain, n, topo, comp.impedance_ohm, rs,
+                           correction=result.gain / ideal_product, previous=pairs)
+        if new == pairs:
+            break
+        pairs = new
+    if bias is not None and not bias.buffered:
+        circuit, result, bias_reason = _settle_bias(req, pairs, circuit, result, bias_reason)
+    return Synthesis(circuit=circuit, as_built=result, bias_reason=bias_reason)
+
+
+def _pair_gain(pair, topology, rs, k) -> float:
+    rf, r2 = pair
+    if topology == NON_INVERTING:
+        return 1.0 + rf / r2
+    return rf / (r2 + (rs if k == 0 else 0.0))
+
+
+def _initial_bias(req: DesignRequest, n: int):
+    if req.supply.kind == DUAL:
+        return None, None
+    comp = req.components
+    r_top, r_bottom = bias_divider(comp.resistor_series, req.supply.v_pos,
+                                   _midrail_target_v(req), comp.impedance_ohm)
+    op = req.opamp
+    spare = n % op.channels_per_package != 0
+    if spare and op.min_stable_gain <= 1.0:
+        reason = ("VMID is buffered by the spare op-amp unit of the last package: a stiff "
+                  "mid-rail keeps the stages from coupling through the shared bias at no "
+                  "extra package.")
+        c_bypass = _bypass_for(req, r_top, r_bottom, n)
+        return Bias(r_top, r_bottom, c_bypass, True), reason
+    c_bypass = _bypass_for(req, r_top, r_bottom, n)
+    if op.min_stable_gain > 1.0:
+        reason = ("VMID is the bypassed divider itself: the op-amp is not unity-gain stable, "
+                  "so it cannot buffer VMID as a follower.")
+    else:
+        reason = ("VMID is the bypassed divider itself: no spare op-amp unit, and the bypass "
+                  "keeps the shared bias node stiff enough.")
+    return Bias(r_top, r_bottom, c_bypass, False), reason
+
+
+def _bypass_for(req: DesignRequest, r_top: float, r_bottom: float, n: int) -> float:
+    """Bypass capacitor putting the divider's pole ``BYPASS_POLE_RATIO`` below the signal
+    poles: ``C = 1 / (2 pi (Rt || Rb) f_pole)``, rounded up to the capacitor series."""
+    m = _low_pole_count(req, n)
+    f_pole = req.target.f_low_hz * ideal.shrinkage(m) / BYPASS_POLE_RATIO
+    r_par = r_top * r_bottom / (r_top + r_bottom)
+    return float(_round_up(req.components.capacitor_series, 1.0 / (TWO_PI * r_par * f_pole)))
+
+
+def _low_pole_count(req: DesignRequest, n: int) -> int:
+    per_stage = 2 if req.topology == NON_INVERTING else 1
+    return n * per_stage + (1 if req.supply.kind != DUAL else 0)
+
+
+def _settle_bias(req, pairs, circuit, result, reason):
+    """Grow the bypass until the response has no low-frequency peaking; else buffer VMID."""
+    target = req.target
+    bias = circuit.bias
+    for _ in range(BYPASS_ATTEMPTS):
+        if flat_outside_band(result, target):
+            return circuit, result, reason
+        bigger = float(_round_up(req.components.capacitor_series, bias.c_bypass_f * BYPASS_GROWTH))
+        bias = replace(bias, c_bypass_f=bigger)
+        circuit = _with_low_side(req, pairs, bias)
+        result = as_built(circuit)
+        reason = ("VMID is the bypassed divider; the bypass was enlarged until the shared "
+                  "bias node no longer lifted the response outside the band (no "
+                  "low-frequency peaking).")
+    if flat_outside_band(result, target) or req.opamp.min_stable_gain > 1.0:
+        return circuit, result, reason
+    bias = replace(bias, buffered=True, c_bypass_f=_bypass_for(
+        req, bias.r_top_ohm, bias.r_bottom_ohm, len(pairs)))
+    circuit = _with_low_side(req, pairs, bias)
+    result = as_built(circuit)
+    reason = ("VMID is buffered by an extra op-amp unit: with the divider alone the shared "
+              "bias node lifted the response outside the band (low-frequency peaking).")
+    return circuit, result, reason
+
+
+def _dc_circuit(req: DesignRequest, pairs) -> Circuit:
+    stages = [_stage(req.topology, rf, r2, None, None, None) for rf, r2 in pairs]
+    return _circuit(req, stages, None, None)
+
+
+def _stage(topology, rf, r2, cc, rb, cg) -> Stage:
+    if topology == NON_INVERTING:
+        return Stage(r_feedback_ohm=rf, r_gain_ohm=r2, c_couple_f=cc, r_bias_ohm=rb, c_gain_f=cg)
+    return Stage(r_feedback_ohm=rf, r_in_ohm=r2, c_couple_f=cc)
+
+
+def _circuit(req: DesignRequest, stages, bias, c_out) -> Circuit:
+    return Circuit(
+        topology=req.topology, supply=req.supply, opamp=req.opamp,
+        source_impedance_ohm=req.signal.source_impedance_ohm, load_ohm=req.signal.load_ohm,
+        bias=bias, stages=tuple(stages), c_out_f=c_out,
+    )
+
+
+def _with_low_side(req: DesignRequest, pairs, bias) -> Circuit:
+    """Size the coupling, ground-leg and output capacitors (module docstring, step 2)."""
+    comp = req.components
+    cser, rser = comp.capacitor_series, comp.resistor_series
+    n = len(pairs)
+    rs = req.signal.source_impedance_ohm
+    single = req.supply.kind != DUAL
+    m = _low_pole_count(req, n)
+    sigma = SIGMA_GRID[:, None]  # (S, 1)
+    p = sigma * req.target.f_low_hz * ideal.shrinkage(m)
+    rb0 = float(_nearest(rser, comp.impedance_ohm))
+    cc, rb, cg = [], [], []
+    for k, (rf, r2) in enumerate(pairs):
+        r_front = rs if k == 0 else 0.0
+        if req.topology == NON_INVERTING:
+            c = _round_up(cser, 1.0 / (TWO_PI * (rb0 + r_front) * p))
+            r = _nearest(rser, np.maximum(1.0 / (TWO_PI * c * p) - r_front, 1.0))
+            cc.append(c)
+            rb.append(r)
+            cg.append(_round_up(cser, 1.0 / (TWO_PI * r2 * p)))
+        else:
+            cc.append(_round_up(cser, 1.0 / (TWO_PI * (r2 + r_front) * p)))
+    c_out = _round_up(cser, 1.0 / (TWO_PI * req.signal.load_ohm * p)) if single else None
+    params = chain.ChainParams(
+        inverting=req.topology == INVERTING,
+        source_impedance_ohm=rs,
+        load_ohm=req.signal.load_ohm,
+        a0=req.opamp.a0,
+        gbw_hz=[req.opamp.gbw_hz] * n,
+        c_couple_f=cc,
+        r_bias_ohm=rb if rb else [None] * n,
+        r_feedback_ohm=[rf for rf, _ in pairs],
+        r_gain_ohm=[r2 for _, r2 in pairs] if req.topology == NON_INVERTING else [None] * n,
+        c_gain_f=cg if cg else [None] * n,
+        r_in_ohm=[r2 for _, r2 in pairs] if req.topology == INVERTING else [None] * n,
+        c_out_f=c_out,
+        r_top_ohm=bias.r_top_ohm if bias is not None and not bias.buffered else None,
+        r_bottom_ohm=bias.r_bottom_ohm if bias is not None and not bias.buffered else None,
+        c_bypass_f=bias.c_bypass_f if bias is not None and not bias.buffered else None,
+    )
+    f_est = _f_low_estimates(params, req)
+    order = np.argsort(-SIGMA_GRID, kind="stable")
+    ok = f_est <= req.target.f_low_hz * (1.0 - F_LOW_MARGIN)
+    candidates = [int(i) for i in order if ok[i]] or [0]
+    chosen = None
+    for i in candidates[:6]:
+        chosen = _pick(req, pairs, bias, cc, rb, cg, c_out, i)
+        ab = as_built(chosen)
+        if not math.isnan(ab.f_low_hz) and ab.f_low_hz <= req.target.f_low_hz:
+            return chosen
+    return _pick(req, pairs, bias, cc, rb, cg, c_out, candidates[0] if candidates else 0)
+
+
+def _pick(req, pairs, bias, cc, rb, cg, c_out, i) -> Circuit:
+    stages = []
+    for k, (rf, r2) in enumerate(pairs):
+        if req.topology == NON_INVERTING:
+            stages.append(_stage(NON_INVERTING, rf, r2, float(cc[k][i, 0]), float(rb[k][i, 0]),
+                                 float(cg[k][i, 0])))
+        else:
+            stages.append(_stage(INVERTING, rf, r2, float(cc[k][i, 0]), None, None))
+    out = None if c_out is None else float(c_out[i, 0])
+    return _circuit(req, stages, bias, out)
+
+
+def _f_low_estimates(params: chain.ChainParams, req: DesignRequest) -> np.ndarray:
+    """Low -3 dB crossing for every sigma, on a grid below the band centre.
+
+    The reference level is |H| at the band centre ``sqrt(f_low f_high)`` of the target,
+    close to the midband maximum; the result only ranks the candidates, and the chosen one
+    is verified on the full model (``as_built``).
+    """
+    t = req.target
+    f_mid = math.sqrt(t.f_low_hz * t.f_high_hz)
+    grid = np.geomspace(t.f_low_hz / 300.0, f_mid, 80)
+    f = np.concatenate([grid, [f_mid]])[None, :]
+    mag = np.abs(chain.solve_params(params, f).vout)
+    mag = np.broadcast_to(mag, (SIGMA_GRID.size, f.shape[1]))
+    thr = mag[:, -1:] / math.sqrt(2.0)
+    below = mag[:, :-1] < thr
+    idx = np.arange(grid.size)[None, :]
+    j = np.max(np.where(below, idx, -1), axis=1)
+    j = np.clip(j, 0, grid.size - 2)
+    m0 = np.log(mag[np.arange(mag.shape[0]), j] / thr[:, 0])
+    m1 = np.log(mag[np.arange(mag.shape[0]), j + 1] / thr[:, 0])
+    x0, x1 = np.log(grid[j]), np.log(grid[j + 1])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        x = np.where(m1 != m0, x0 - m0 * (x1 - x0) / (m1 - m0), x0)
+    est = np.exp(x)
+    est = np.where(below.any(axis=1), est, 0.0)
+    return est
+
+
+# ----------------------------------------------------------------------------- top level
+
+
+@dataclass(frozen=True)
+class Design:
+    request: DesignRequest
+    synthesis: Synthesis
+    ideal: ideal.IdealCascade
+    status: str
+    shortfalls: list
+
+
+def check_request(req: DesignRequest) -> None:
+    """Engine-level checks the schema cannot make (they need the resolved op-amp)."""
+    span = req.supply.span_v
+    op = req.opamp
+    if not op.supply_min_v <= span <= op.supply_max_v:
+        raise EngineError(
+            f"supply span {span:g} V is outside the op-amp's {op.supply_min_v:g}.."
+            f"{op.supply_max_v:g} V", field="supply")
+    if req.target.f_low_hz == 0 and req.supply.kind != DUAL:
+        raise EngineError("f_low_hz = 0 (DC coupling) needs a dual supply", field="target.f_low_hz")
+
+
+def stage_counts_to_try(req: DesignRequest) -> list[int]:
+    """Auto mode: stage counts in increasing order whose ideal f_high can reach the target
+    and whose stage noise gain the op-amp tolerates."""
+    out = []
+    for n in range(1, ideal.MAX_STAGES + 1):
+        ic = ideal.ideal_cascade(req.target.gain, req.target.f_low_hz or 1.0, req.opamp.gbw_hz,
+                                 n, req.topology)
+        stable = ideal.noise_gain(ic.stage_gain, req.topology) >= req.opamp.min_stable_gain
+        if stable and ic.f_high_hz >= 0.97 * req.target.f_high_hz:
+            out.append(n)
+    return out
+
+
+def best_reach(req: DesignRequest) -> int:
+    """Stage count with the highest ideal f_high among the stable ones (1 if none)."""
+    best, best_f = 1, -1.0
+    for n in range(1, ideal.MAX_STAGES + 1):
+        ic = ideal.ideal_cascade(req.target.gain, 1.0, req.opamp.gbw_hz, n, req.topology)
+        stable = ideal.noise_gain(ic.stage_gain, req.topology) >= req.opamp.min_stable_gain
+        if stable and ic.f_high_hz > best_f:
+            best, best_f = n, ic.f_high_hz
+    return best
+
+
+def design(req: DesignRequest) -> Design:
+    """Design the cascade: the requested stage count, or the fewest stages that meet the
+    target (auto); when none does, the stage count with the highest as-built f_high.
+
+    :raise EngineError: the supply span does not suit the op-amp, or DC coupling was asked
+        for on a single supply.
+    """
+    from service.engine.analysis import status_of
+
+    check_request(req)
+    if req.stages is not None:
+        syn = synthesize(req, req.stages)
+    else:
+        tried: dict[int, Synthesis] = {}
+        syn = None
+        for n in stage_counts_to_try(req):
+            tried[n] = synthesize(req, n)
+            if status_of(tried[n].as_built, req.target)[0] == "meets_target":
+                syn = tried[n]
+                break
+        if syn is None:
+            reach = best_reach(req)
+            for n in (reach - 1, reach, reach + 1):
+                if 1 <= n <= ideal.MAX_STAGES and n not in tried:
+                    tried[n] = synthesize(req, n)
+            syn = best_by_f_high(tried)
+    n = syn.circuit.n_stages
+    ic = ideal.ideal_cascade(req.target.gain, req.target.f_low_hz, req.opamp.gbw_hz, n,
+                             req.topology)
+    status, shortfalls = status_of(syn.as_built, req.target)
+    return Design(request=req, synthesis=syn, ideal=ic, status=status, shortfalls=shortfalls)
+
+
+def best_by_f_high(tried: dict) -> Synthesis:
+    """The synthesis with the highest as-built f_high (fewer stages on a tie)."""
+    n = max(sorted(tried), key=lambda k: (tried[k].as_built.f_high_hz, -k))
+    return tried[n]
+
+
+def best_design(req: DesignRequest) -> Design:
+    """The best achievable design for ``strict`` failures: the stage count (1..12) with
+    the highest as-built f_high, searched around the ideal optimum."""
+    reach = best_reach(req)
+    tried = {n: synthesize(req, n) for n in (reach - 1, reach, reach + 1)
+             if 1 <= n <= ideal.MAX_STAGES}
+    syn = best_by_f_high(tried)
+    return design(replace(req, stages=syn.circuit.n_stages, strict=False))

@@ -1,0 +1,249 @@
+"""Frozen dataclasses for the circuit model and its JSON form.
+
+The circuit object is a contract shared with the API, the exporters and downstream tools.
+Its exact shape (every key present, absent parts as ``None``) is described in README.md,
+section "The circuit model", and mirrored by ``schemas/circuit.py``.
+
+Nodes of the model: GND; REF (= VMID on a single supply, GND on a dual supply); the source
+node X1 fed by an ideal source Vs through ``source_impedance_ohm``; per stage k the nodes
+X_k (input), P_k (non-inverting input), N_k (inverting input), G_k (ground leg), M_k
+(inverting input network) and O_k (output); OUT (load side of ``c_out_f``); VCC, VDIV and
+VMID of the bias network.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, field, fields, replace
+
+NON_INVERTING = "non_inverting"
+INVERTING = "inverting"
+TOPOLOGIES = (NON_INVERTING, INVERTING)
+
+SINGLE = "single"
+DUAL = "dual"
+
+#: Stage keys per topology, in the order the JSON form lists them.
+STAGE_KEYS = {
+    NON_INVERTING: ("c_couple_f", "r_bias_ohm", "r_feedback_ohm", "r_gain_ohm", "c_gain_f"),
+    INVERTING: ("c_couple_f", "r_in_ohm", "r_feedback_ohm"),
+}
+
+
+@dataclass(frozen=True)
+class OpAmp:
+    """Small-signal and limit figures of one op-amp channel (SI units).
+
+    Open-loop model: ``A(s) = A0 / (1 + s A0 / (2 pi gbw_hz))`` with ``A0 = 10**(a0_db/20)``,
+    no input current, zero output impedance.
+
+    Defaults for the optional fields: ``a0_db`` 100, common-mode margins 0 (the input may
+    reach each rail), noise densities, bias current, offset and quiescent current 0 (not
+    modelled), one channel per package, minimum stable gain 1 (unity-gain stable),
+    ``psrr_db`` None (ideal: the supply does not reach the signal path).
+    """
+
+    gbw_hz: float
+    slew_v_per_us: float
+    swing_to_pos_v: float
+    swing_to_neg_v: float
+    supply_min_v: float
+    supply_max_v: float
+    id: str | None = None
+    description: str = ""
+    manufacturer: str = ""
+    mpn: str = ""
+    a0_db: float = 100.0
+    cm_to_pos_v: float = 0.0
+    cm_to_neg_v: float = 0.0
+    en_v_per_rthz: float = 0.0
+    in_a_per_rthz: float = 0.0
+    ib_a: float = 0.0
+    vos_v: float = 0.0
+    iq_a: float = 0.0
+    channels_per_package: int = 1
+    min_stable_gain: float = 1.0
+    psrr_db: float | None = None
+
+    @property
+    def a0(self) -> float:
+        """Open-loop DC gain as a ratio, ``10**(a0_db/20)``."""
+        return 10.0 ** (self.a0_db / 20.0)
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+    @classmethod
+    def from_dict(cls, data: dict) -> OpAmp:
+        known = {f.name for f in fields(cls)}
+        return cls(**{k: v for k, v in data.items() if k in known})
+
+
+@dataclass(frozen=True)
+class Supply:
+    """Supply rails. ``v_neg`` is 0 on a single supply."""
+
+    kind: str
+    v_pos: float
+    v_neg: float = 0.0
+
+    @property
+    def span_v(self) -> float:
+        """Total supply span ``v_pos - v_neg`` in volts."""
+        return self.v_pos - self.v_neg
+
+    def to_dict(self) -> dict:
+        if self.kind == SINGLE:
+            return {"kind": SINGLE, "v_pos": self.v_pos}
+        return {"kind": DUAL, "v_pos": self.v_pos, "v_neg": self.v_neg}
+
+    @classmethod
+    def from_dict(cls, data: dict) -> Supply:
+        return cls(kind=data["kind"], v_pos=data["v_pos"], v_neg=data.get("v_neg", 0.0) or 0.0)
+
+
+@dataclass(frozen=True)
+class Bias:
+    """Single-supply mid-rail bias: divider VCC-VDIV-GND, bypass at VDIV, optional follower."""
+
+    r_top_ohm: float
+    r_bottom_ohm: float
+    c_bypass_f: float
+    buffered: bool
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+@dataclass(frozen=True)
+class Stage:
+    """One gain stage. Which keys apply depends on the circuit's topology (``STAGE_KEYS``)."""
+
+    r_feedback_ohm: float
+    c_couple_f: float | None = None
+    r_bias_ohm: float | None = None
+    r_gain_ohm: float | None = None
+    c_gain_f: float | None = None
+    r_in_ohm: float | None = None
+
+    def to_dict(self, topology: str) -> dict:
+        return {k: getattr(self, k) for k in STAGE_KEYS[topology]}
+
+
+@dataclass(frozen=True)
+class Circuit:
+    """The complete circuit: what the engine analyses and the exporters draw."""
+
+    topology: str
+    supply: Supply
+    opamp: OpAmp
+    source_impedance_ohm: float
+    load_ohm: float
+    bias: Bias | None
+    stages: tuple[Stage, ...]
+    c_out_f: float | None = None
+
+    @property
+    def n_stages(self) -> int:
+        return len(self.stages)
+
+    @property
+    def single_supply(self) -> bool:
+        return self.supply.kind == SINGLE
+
+    @property
+    def opamp_units(self) -> int:
+        """Op-amp channels used: one per stage, plus the bias follower when buffered."""
+        return self.n_stages + (1 if self.bias is not None and self.bias.buffered else 0)
+
+    @property
+    def opamp_packages(self) -> int:
+        return math.ceil(self.opamp_units / self.opamp.channels_per_package)
+
+    def to_dict(self) -> dict:
+        return {
+            "topology": self.topology,
+            "supply": self.supply.to_dict(),
+            "opamp": self.opamp.to_dict(),
+            "source_impedance_ohm": self.source_impedance_ohm,
+            "load_ohm": self.load_ohm,
+            "bias": None if self.bias is None else self.bias.to_dict(),
+            "stages": [s.to_dict(self.topology) for s in self.stages],
+            "c_out_f": self.c_out_f,
+        }
+
+    @classmethod
+    def from_dict(cls, data: dict) -> Circuit:
+        """Build a circuit from its JSON form (already validated by ``schemas.circuit``)."""
+        bias = data.get("bias")
+        return cls(
+            topology=data["topology"],
+            supply=Supply.from_dict(data["supply"]),
+            opamp=OpAmp.from_dict(data["opamp"]),
+            source_impedance_ohm=float(data["source_impedance_ohm"]),
+            load_ohm=float(data["load_ohm"]),
+            bias=None if bias is None else Bias(**bias),
+            stages=tuple(Stage(**s) for s in data["stages"]),
+            c_out_f=data.get("c_out_f"),
+        )
+
+    def with_stages(self, stages) -> Circuit:
+        return replace(self, stages=tuple(stages))
+
+
+@dataclass(frozen=True)
+class Target:
+    """Normalised cascade target: overall gain (ratio and dB) and the pass band."""
+
+    gain: float
+    gain_db: float
+    f_low_hz: float
+    f_high_hz: float
+    gain_tolerance_db: float = 0.5
+
+    @classmethod
+    def from_gain(cls, *, gain: float | None = None, gain_db: float | None = None,
+                  f_low_hz: float, f_high_hz: float, gain_tolerance_db: float = 0.5) -> Target:
+        """Either ``gain`` or ``gain_db`` (or both, when they agree) fixes the other."""
+        if gain is None:
+            gain = 10.0 ** (gain_db / 20.0)
+        if gain_db is None:
+            gain_db = 20.0 * math.log10(gain)
+        return cls(gain=gain, gain_db=gain_db, f_low_hz=f_low_hz, f_high_hz=f_high_hz,
+                   gain_tolerance_db=gain_tolerance_db)
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+@dataclass(frozen=True)
+class Components:
+    """Component-series choices of a design request."""
+
+    resistor_series: str = "E96"
+    capacitor_series: str = "E12"
+    resistor_tolerance_pct: float = 1.0
+    capacitor_tolerance_pct: float = 10.0
+    impedance_ohm: float = 10_000.0
+
+
+@dataclass(frozen=True)
+class Signal:
+    input_peak_v: float = 0.01
+    source_impedance_ohm: float = 50.0
+    load_ohm: float = 10_000.0
+
+
+@dataclass(frozen=True)
+class DesignRequest:
+    """A validated design request (built by ``schemas.request``)."""
+
+    target: Target
+    supply: Supply
+    opamp: OpAmp
+    signal: Signal = field(default_factory=Signal)
+    topology: str = NON_INVERTING
+    stages: int | None = None  # None = auto
+    components: Components = field(default_factory=Components)
+    strict: bool = False
+    name: str | None = None

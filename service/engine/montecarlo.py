@@ -1,0 +1,430 @@
+"""Tolerance Monte Carlo of the as-built figures, vectorised over trials and frequencies.
+
+Distribution: every resistor and capacitor of the circuit (source and load impedances
+excepted) takes ``nominal * (1 + t u)`` with ``u`` independent and uniform on [-1, 1] and
+``t`` its tolerance (``resistor_tolerance_pct``, ``capacitor_tolerance_pct``); each op-amp
+unit's gain-bandwidth product likewise within ``gbw_tolerance_pct``. Draws come from
+``numpy.random.Generator`` (PCG64) seeded by the request, in a fixed order, so the same
+seed gives the same figures.
+
+Model ("chain-nodal"): the exact nodal solution of the chain (:mod:`service.engine.chain`)
+with every part as an array of trials, evaluated on a log grid of ``frequency_points``
+frequencies from two decades below the nominal low corner to two decades above the nominal
+high corner; the maximum and the -3 dB crossings are then refined per trial exactly as for
+the as-built figures (:func:`service.engine.corners.find_band`). When VMID is buffered the
+follower holds VMID at the divider's AC voltage, which the signal never reaches, so the
+divider, its bypass and the follower's gain-bandwidth do not affect ``Vout/Vs`` and are not
+varied; a shared (unbuffered) divider and bypass are.
+
+Worst case (first order): the sensitivity of each figure to each part is the sign of a
+one-sided finite difference at nominal (relative step ``SENSITIVITY_STEP``); the low-end
+(high-end) worst case puts every part at the end of its range that lowers (raises) the
+figure, and evaluates the full model there.
+
+The work is split into chunks of trials (cache-sized arrays) spread over a small thread pool:
+numpy releases the GIL in its array loops, so chunks run in parallel.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from service.engine.chain import TWO_PI, ChainParams, params_from_circuit, solve_params
+from service.engine.corners import find_band
+from service.engine.model import Circuit, Target
+
+MAX_TRIALS = 100_000
+DEFAULT_FREQUENCY_POINTS = 200
+#: Decades of grid beyond each nominal corner: a +-20 % part moves a corner by far less.
+GRID_MARGIN_DECADES = 2.0
+#: For a DC-coupled cascade (no low corner) the grid starts this many decades below f_high.
+DC_GRID_DECADES = 5.0
+#: Relative step of the finite differences that give each sensitivity's sign.
+SENSITIVITY_STEP = 1e-4
+#: Trials per chunk: keeps the (trials x frequencies) complex arrays near cache size.
+CHUNK_TRIALS = 500
+PERCENTILES = (1, 5, 50, 95, 99)
+FIGURES = ("gain_db", "f_low_hz", "f_high_hz")
+CHAIN_NODAL = "chain-nodal"
+STAGE_PRODUCT = "stage-product"
+
+MODEL_DESCRIPTIONS = {
+    CHAIN_NODAL: ("exact nodal solution of the chain (shared bias node included) for every "
+                  "trial on a log grid of frequency_points frequencies two decades beyond the "
+                  "nominal corners; maximum and -3 dB crossings refined per trial"),
+    STAGE_PRODUCT: ("product of exact per-stage transfer functions (valid because REF is stiff: "
+                    "dual supply or buffered VMID), algebraically identical to the nodal "
+                    "solution, on a log grid of frequency_points frequencies two decades beyond "
+                    "the nominal corners; maximum and -3 dB crossings refined per trial; "
+                    "nominal_max_rel_deviation compares its nominal figures with the as-built "
+                    "ones"),
+}
+
+_PER_STAGE = {
+    "c_couple_f": "capacitor", "r_bias_ohm": "resistor", "r_feedback_ohm": "resistor",
+    "r_gain_ohm": "resistor", "c_gain_f": "capacitor", "r_in_ohm": "resistor",
+    "gbw_hz": "gbw",
+}
+_SCALAR = {"c_out_f": "capacitor", "r_top_ohm": "resistor", "r_bottom_ohm": "resistor",
+           "c_bypass_f": "capacitor"}
+
+
+@dataclass(frozen=True)
+class Tolerances:
+    """Half-widths of the uniform distributions, in percent."""
+
+    resistor_pct: float
+    capacitor_pct: float
+    gbw_pct: float = 0.0
+
+    def of(self, kind: str) -> float:
+        return {"resistor": self.resistor_pct, "capacitor": self.capacitor_pct,
+                "gbw": self.gbw_pct}[kind] / 100.0
+
+
+@dataclass(frozen=True)
+class Part:
+    """One varied quantity of :class:`ChainParams`: field, stage index (None: scalar)."""
+
+    field: str
+    index: int | None
+    kind: str
+    nominal: float
+
+
+@dataclass(frozen=True)
+class MonteCarloResult:
+    """Per-trial figures (arrays of length ``trials``; nan where a corner does not exist)."""
+
+    gain_db: np.ndarray
+    f_low_hz: np.ndarray
+    f_high_hz: np.ndarray
+    grid_hz: np.ndarray
+    parts: tuple
+    model: str
+
+
+def varied_parts(params: ChainParams, tol: Tolerances) -> tuple[Part, ...]:
+    """Every part of ``params`` that exists and has a non-zero tolerance, in a fixed order."""
+    parts = []
+    for k in range(len(params.r_feedback_ohm)):
+        for name, kind in _PER_STAGE.items():
+            value = getattr(params, name)[k]
+            if value is not None and tol.of(kind) > 0:
+                parts.append(Part(name, k, kind, float(value)))
+    for name, kind in _SCALAR.items():
+        value = getattr(params, name)
+        if value is not None and tol.of(kind) > 0:
+            parts.append(Part(name, None, kind, float(value)))
+    return tuple(parts)
+
+
+def with_values(params: ChainParams, parts, values: np.ndarray) -> ChainParams:
+    """``params`` with part i set to ``values[:, i]`` (as a column of trials)."""
+    changes: dict = {}
+    for i, part in enumerate(parts):
+        col = values[:, i:i + 1]
+        if part.index is None:
+            changes[part.field] = col
+        else:
+            lst = changes.setdefault(part.field, list(getattr(params, part.field)))
+            lst[part.index] = col
+    return replace(params, **changes)
+
+
+def analysis_grid(f_low_hz: float, f_high_hz: float,
+                  points: int = DEFAULT_FREQUENCY_POINTS) -> np.ndarray:
+    """Log grid two decades beyond the nominal corners (``f_low`` nan: DC coupled)."""
+    hi = f_high_hz * 10 ** GRID_MARGIN_DECADES
+    if math.isfinite(f_low_hz):
+        lo = f_low_hz / 10 ** GRID_MARGIN_DECADES
+    else:
+        lo = f_high_hz / 10 ** DC_GRID_DECADES
+    return np.logspace(math.log10(lo), math.log10(hi), points)
+
+
+
+def stiff_reference(circuit: Circuit) -> bool:
+    """True when REF carries no signal (dual supply, or VMID buffered by the follower)."""
+    return circuit.bias is None or circuit.bias.buffered
+
+
+def _quad_mag2_poly(p0, p1, p2):
+    """``|p0 + p1 s + p2 s^2|^2`` at ``s = j w`` as a polynomial in ``x = w^2``:
+    ``(p0 - p2 x)^2 + p1^2 x = p0^2 + (p1^2 - 2 p0 p2) x + p2^2 x^2`` (coefficients low first)."""
+    return [p0 * p0, p1 * p1 - 2.0 * p0 * p2, p2 * p2]
+
+
+def _polymul(p, q):
+    """Product of two coefficient lists (low first) whose entries are trial arrays."""
+    out = [0.0] * (len(p) + len(q) - 1)
+    for i, a in enumerate(p):
+        for j, b in enumerate(q):
+            out[i + j] = out[i + j] + a * b
+    return out
+
+
+def _horner(coeffs, x):
+    value = coeffs[-1]
+    for c in reversed(coeffs[:-1]):
+        value = value * x + c
+    return value
+
+
+def stage_factors(p: ChainParams) -> list:
+    """``[(N_k, D_k)]``: ``|H_k(j w)|^2 = N_k(w^2) / D_k(w^2)`` per stage, then the output.
+
+    Coefficient lists (low first) in ``x = w^2``; entries are floats or trial arrays. See
+    :func:`stage_product_mag` for the transfer functions they come from.
+    """
+    rs = p.source_impedance_ohm
+    a0 = p.a0
+    factors = []
+    for k in range(len(p.r_feedback_ohm)):
+        tau = a0 / (TWO_PI * p.gbw_hz[k])
+        rf = p.r_feedback_ohm[k]
+        cc = p.c_couple_f[k]
+        series = rs if k == 0 else 0.0
+        if p.inverting:
+            rin = p.r_in_ohm[k] + series
+            if cc is None:
+                num = [(a0 * rf) ** 2]
+                den = _quad_mag2_poly(rf + rin + a0 * rin, tau * (rf + rin), 0.0)[:2]
+            else:
+                num = [0.0, (a0 * rf * cc) ** 2]
+                den = _quad_mag2_poly(1.0 + a0, tau + cc * (rf + rin) + a0 * cc * rin,
+                                      tau * cc * (rf + rin))
+            factors.append((num, den))
+            continue
+        rb = p.r_bias_ohm[k]
+        if cc is not None:
+            c_num, c_den = [0.0, (cc * rb) ** 2], [1.0, (cc * (rb + series)) ** 2]
+        elif rb is not None and k == 0:
+            c_num, c_den = [(rb / (rb + rs)) ** 2], [1.0]
+        else:
+            c_num, c_den = [1.0], [1.0]
+        rg = p.r_gain_ohm[k]
+        cg = p.c_gain_f[k]
+        if cg is None:
+            g_num = [(a0 * (rf + rg)) ** 2]
+            g_den = _quad_mag2_poly(rf + rg + a0 * rg, tau * (rf + rg), 0.0)[:2]
+        else:
+            t_fg = cg * (rf + rg)
+            g_num = [a0 * a0, (a0 * t_fg) ** 2]
+            g_den = _quad_mag2_poly(1.0 + a0, tau + t_fg + a0 * rg * cg, tau * t_fg)
+        factors.append((_polymul(c_num, g_num), _polymul(c_den, g_den)))
+    if p.c_out_f is not None:
+        t_o2 = (p.c_out_f * p.load_ohm) ** 2
+        factors.append(([0.0, t_o2], [1.0, t_o2]))
+    return factors
+
+
+def stage_product_mag(p: ChainParams, f_hz, factors: list | None = None) -> np.ndarray:
+    """``|Vout/Vs|`` as a product of per-stage factors, valid when REF is stiff.
+
+    With REF an AC ground and zero-impedance op-amp outputs, each stage is driven by an ideal
+    source (the previous output; for stage 1, Vs with ``Rs`` in series with the stage's
+    input branch), so ``Vout/Vs = prod_k H_k * H_out`` exactly. Per stage (``tau = A0/(2 pi
+    GBW)``, ``R'`` = input resistor plus ``Rs`` for stage 1):
+
+    * non-inverting, coupling: ``s Cc Rb / (1 + s Cc R'b)``;
+      gain with ground-leg capacitor: ``A0 (1 + s Cg (Rf+Rg)) / ((1 + A0) +
+      s (tau + Cg (Rf+Rg) + A0 Rg Cg) + s^2 tau Cg (Rf+Rg))``; without it
+      ``A0 (Rf+Rg) / ((Rf+Rg+A0 Rg) + s tau (Rf+Rg))``;
+    * inverting: ``-A0 Rf s Cc / ((1 + A0) + s (tau + Cc (Rf+R'in) + A0 Cc R'in)
+      + s^2 tau Cc (Rf+R'in))``; without Cc ``-A0 Rf / ((Rf+R'in+A0 R'in) + s tau (Rf+R'in))``;
+    * output: ``s Co RL / (1 + s Co RL)``.
+
+    These follow from the stage equations of :mod:`service.engine.chain` by multiplying
+    through by ``s C (1 + s tau)``. Each ``|H_k|^2`` is a ratio of real polynomials in
+    ``w^2`` whose coefficients are computed once per trial; the grid then costs a few real
+    Horner steps per stage, which is what makes this model fast.
+    """
+    w = TWO_PI * np.asarray(f_hz, dtype=float)
+    x = w * w
+    mag2 = None
+    for num, den in factors if factors is not None else stage_factors(p):
+        ratio = _horner(num, x) / _horner(den, x)
+        mag2 = ratio if mag2 is None else mag2 * ratio
+    return np.sqrt(mag2)
+
+
+def evaluator(params: ChainParams, model: str):
+    """``f -> |Vout/Vs|`` for the named model (``"stage-product"`` or ``"chain-nodal"``)."""
+    if model == STAGE_PRODUCT:
+        factors = stage_factors(params)
+        return lambda f: stage_product_mag(params, f, factors)
+    return lambda f: np.abs(solve_params(params, f).vout)
+
+
+def model_for(circuit: Circuit) -> str:
+    """The fast stage-product model when REF is stiff, else the full chain-nodal model."""
+    return STAGE_PRODUCT if stiff_reference(circuit) else CHAIN_NODAL
+
+
+def figures(params: ChainParams, grid_hz: np.ndarray, batch: int, model: str = CHAIN_NODAL):
+    """(gain_db, f_low_hz, f_high_hz) arrays for a batch of trial parameters.
+
+    Floating-point warnings are silenced here: ``find_band`` extrapolates the refinement of a
+    corner that does not exist (DC coupled) before discarding it as nan.
+    """
+    with np.errstate(all="ignore"):
+        band = find_band(evaluator(params, model), batch, grid_hz)
+        gain_db = 20.0 * np.log10(band.gain)
+    return gain_db, band.f_low_hz, band.f_high_hz
+
+
+def nominal_figures(circuit: Circuit, grid_hz: np.ndarray, model: str | None = None):
+    """The Monte Carlo model's figures at nominal values (scalars)."""
+    p = params_from_circuit(circuit)
+    g, lo, hi = figures(p, grid_hz, 1, model or model_for(circuit))
+    return float(g[0]), float(lo[0]), float(hi[0])
+
+
+def draw(parts, trials: int, tol: Tolerances, rng: np.random.Generator) -> np.ndarray:
+    """``(trials, parts)`` values, each uniform within nominal * (1 +- tolerance)."""
+    u = rng.uniform(-1.0, 1.0, size=(trials, len(parts)))
+    nominal = np.array([p.nominal for p in parts])
+    half = np.array([tol.of(p.kind) for p in parts])
+    return nominal * (1.0 + half * u)
+
+
+def run(circuit: Circuit, *, trials: int, tol: Tolerances, rng: np.random.Generator,
+        grid_hz: np.ndarray, workers: int | None = None,
+        model: str | None = None) -> MonteCarloResult:
+    """Run ``trials`` Monte Carlo trials of the circuit (``model`` default: :func:`model_for`)."""
+    model = model or model_for(circuit)
+    if not 1 <= trials <= MAX_TRIALS:
+        raise ValueError(f"trials must be 1..{MAX_TRIALS}, got {trials}")
+    params = params_from_circuit(circuit)
+    parts = varied_parts(params, tol)
+    values = draw(parts, trials, tol, rng)
+    chunks = [(a, min(a + CHUNK_TRIALS, trials)) for a in range(0, trials, CHUNK_TRIALS)]
+
+    def one(chunk):
+        a, b = chunk
+        p = with_values(params, parts, values[a:b])
+        return figures(p, grid_hz, b - a, model)
+
+    workers = workers or min(len(chunks), max(1, os.cpu_count() or 1), 4)
+    if workers > 1:
+        with ThreadPoolExecutor(max_workers=workers) as pool:
+            results = list(pool.map(one, chunks))
+    else:
+        results = [one(c) for c in chunks]
+    gain_db, f_low, f_high = (np.concatenate([r[i] for r in results]) for i in range(3))
+    return MonteCarloResult(gain_db=gain_db, f_low_hz=f_low, f_high_hz=f_high,
+                            grid_hz=grid_hz, parts=parts, model=model)
+
+
+def worst_cases(circuit: Circuit, *, tol: Tolerances, grid_hz: np.ndarray) -> dict:
+    """First-order worst case of each figure: ``{figure: (low, high)}`` (full chain-nodal
+    model: only a handful of evaluations)."""
+    params = params_from_circuit(circuit)
+    parts = varied_parts(params, tol)
+    nominal = np.array([p.nominal for p in parts])
+    if not parts:
+        g, lo, hi = figures(params, grid_hz, 1)
+        nom = {"gain_db": g[0], "f_low_hz": lo[0], "f_high_hz": hi[0]}
+        return {k: (float(v), float(v)) for k, v in nom.items()}
+    steps = np.vstack([nominal, nominal * (1.0 + SENSITIVITY_STEP * np.eye(len(parts)))])
+    rows = dict(zip(FIGURES, figures(with_values(params, parts, steps), grid_hz, len(steps)),
+                    strict=True))
+    half = np.array([tol.of(p.kind) for p in parts])
+    cases = []
+    for name in FIGURES:
+        with np.errstate(invalid="ignore"):
+            sens = np.sign(np.nan_to_num(rows[name][1:] - rows[name][0]))
+        cases.append(nominal * (1.0 - half * sens))  # lowers the figure
+        cases.append(nominal * (1.0 + half * sens))  # raises it
+    evaluated = figures(with_values(params, parts, np.vstack(cases)), grid_hz, len(cases))
+    out = {}
+    for i, name in enumerate(FIGURES):
+        col = evaluated[i]
+        out[name] = (float(col[2 * i]), float(col[2 * i + 1]))
+    return out
+
+
+def summary(values: np.ndarray) -> dict:
+    """min, p1, p5, p50, p95, p99, max over the finite values (None when there are none)."""
+    finite = values[np.isfinite(values)]
+    keys = ("min", "p1", "p5", "p50", "p95", "p99", "max")
+    if finite.size == 0:
+        return dict.fromkeys(keys)
+    q = np.percentile(finite, PERCENTILES)
+    return {"min": float(finite.min()), **{f"p{p}": float(v) for p, v in zip(PERCENTILES, q,
+                                                                            strict=True)},
+            "max": float(finite.max())}
+
+
+def meets(result: MonteCarloResult, target: Target) -> np.ndarray:
+    """Per trial: f_low <= target, f_high >= target, |gain_db - target| <= tolerance.
+
+    A trial without a low corner on the grid (DC coupled, or far below the target) meets the
+    low-corner condition; a trial without a high corner inside the grid meets the high one.
+    """
+    gain_ok = np.abs(result.gain_db - target.gain_db) <= target.gain_tolerance_db
+    with np.errstate(invalid="ignore"):
+        low_ok = ~(result.f_low_hz > target.f_low_hz)
+        high_ok = ~(result.f_high_hz < target.f_high_hz)
+    return gain_ok & low_ok & high_ok
+
+
+def tolerance_block(circuit: Circuit, *, target: Target | None, as_built: dict, trials: int,
+                    seed: int, resistor_tolerance_pct: float, capacitor_tolerance_pct: float,
+                    gbw_tolerance_pct: float = 0.0,
+                    frequency_points: int = DEFAULT_FREQUENCY_POINTS) -> dict:
+    """The response's ``tolerance`` block (JSON-ready)."""
+    tol = Tolerances(resistor_tolerance_pct, capacitor_tolerance_pct, gbw_tolerance_pct)
+    f_low = as_built.get("f_low_hz")
+    f_low = float("nan") if f_low is None else float(f_low)
+    grid = analysis_grid(f_low, float(as_built["f_high_hz"]), frequency_points)
+    rng = np.random.default_rng(seed)
+    result = run(circuit, trials=trials, tol=tol, rng=rng, grid_hz=grid)
+    nominal = dict(zip(FIGURES, nominal_figures(circuit, grid, result.model), strict=True))
+    worst = worst_cases(circuit, tol=tol, grid_hz=grid)
+    reference = {"gain_db": as_built.get("gain_db"), "f_low_hz": as_built.get("f_low_hz"),
+                 "f_high_hz": as_built.get("f_high_hz")}
+    deviation = 0.0
+    for name in FIGURES:
+        ref = reference[name]
+        if ref is not None and math.isfinite(ref) and math.isfinite(nominal[name]):
+            scale = abs(ref) if name != "gain_db" else abs(10 ** (ref / 20))
+            diff = (abs(nominal[name] - ref) if name != "gain_db"
+                    else abs(10 ** (nominal[name] / 20) - 10 ** (ref / 20)))
+            deviation = max(deviation, diff / scale)
+    block = {
+        "trials": trials,
+        "seed": seed,
+        "resistor_tolerance_pct": resistor_tolerance_pct,
+        "capacitor_tolerance_pct": capacitor_tolerance_pct,
+        "gbw_tolerance_pct": gbw_tolerance_pct,
+        "distribution": ("independent uniform: every resistor and capacitor (source and load "
+                         "impedances excepted) at nominal*(1+t*u), u uniform on [-1, 1], t its "
+                         "tolerance; each op-amp unit's gain-bandwidth likewise within "
+                         "gbw_tolerance_pct"),
+        "model": {
+            "name": result.model,
+            "description": MODEL_DESCRIPTIONS[result.model],
+            "frequency_points": int(grid.size),
+            "grid_hz": [float(grid[0]), float(grid[-1])],
+            "varied_parts": len(result.parts),
+            "nominal_max_rel_deviation": deviation,
+        },
+        "yield": None if target is None else float(np.mean(meets(result, target))),
+    }
+    for name in FIGURES:
+        values = getattr(result, name)
+        block[name] = {
+            **summary(values),
+            "nominal": nominal[name],
+            "worst_case_low": worst[name][0],
+            "worst_case_high": worst[name][1],
+            "missing": int(np.count_nonzero(~np.isfinite(values))),
+        }
+    return block

@@ -1,0 +1,164 @@
+"""JSON-ready report blocks of a design or an analysis (pure: dicts of floats and strings).
+
+Non-finite floats may appear (a corner that does not exist); ``service.jsonout`` writes
+them as null.
+"""
+
+from __future__ import annotations
+
+import math
+
+from service.engine import analysis, ideal
+from service.engine.design import Design
+from service.engine.model import INVERTING, NON_INVERTING, Circuit, Target
+
+CAUTIONS = (
+    "gainchain is a design aid: build a prototype and measure it before relying on it.",
+    "Follow the safety standards, codes and licensed practice that apply where the circuit is "
+    "built and used, above all for its supply.",
+    "Aluminium electrolytic capacitors are polarised and have voltage ratings: fit them the "
+    "right way round, within their rating, and check the DC bias across each.",
+    "Check the op-amp's own datasheet limits (supply, inputs, output current, stability with "
+    "the load) for the part actually fitted.",
+)
+
+
+def bias_block(circuit: Circuit, reason: str | None) -> dict:
+    """VMID, why it sits there, the divider and bypass values and the bias node's impedance."""
+    if circuit.bias is None:
+        return {
+            "ref": "GND", "vmid_v": 0.0, "vmid_target_v": 0.0,
+            "reason": reason or "Dual supply: the stages are referred to ground; no bias "
+                                "network.",
+            "r_top_ohm": None, "r_bottom_ohm": None, "c_bypass_f": None, "buffered": None,
+            "node_impedance_ohm": 0.0, "bypass_corner_hz": None, "divider_current_a": 0.0,
+        }
+    b = circuit.bias
+    op = circuit.opamp
+    r_par = b.r_top_ohm * b.r_bottom_ohm / (b.r_top_ohm + b.r_bottom_ohm)
+    lo, hi = analysis.swing_window_v(circuit)
+    vmid = analysis.vmid_v(circuit)
+    why = (f"VMID = {vmid:.4g} V, the E-series divider nearest the centre "
+           f"{0.5 * (lo + hi):.4g} V of the output swing window {lo:.4g}..{hi:.4g} V "
+           f"(swing to the rails {op.swing_to_neg_v:g} V / {op.swing_to_pos_v:g} V). ")
+    return {
+        "ref": "VMID",
+        "vmid_v": vmid,
+        "vmid_target_v": 0.5 * (lo + hi),
+        "reason": why + (reason or ("VMID buffered by a follower." if b.buffered else
+                                    "VMID is the bypassed divider itself.")),
+        "r_top_ohm": b.r_top_ohm,
+        "r_bottom_ohm": b.r_bottom_ohm,
+        "c_bypass_f": b.c_bypass_f,
+        "buffered": b.buffered,
+        # An ideal follower (zero output impedance in the model) makes VMID stiff.
+        "node_impedance_ohm": 0.0 if b.buffered else r_par,
+        "bypass_corner_hz": 1.0 / (2.0 * math.pi * r_par * b.c_bypass_f),
+        "divider_current_a": circuit.supply.v_pos / (b.r_top_ohm + b.r_bottom_ohm),
+    }
+
+
+def _warn(code: str, message: str) -> dict:
+    return {"code": code, "message": message}
+
+
+def analysis_block(circuit: Circuit, *, target: Target | None, input_peak_v: float,
+                   bias_reason: str | None = None, ab: analysis.AsBuilt | None = None) -> dict:
+    """as_built, headroom, bias, warnings (and status/shortfalls given a target)."""
+    ab = ab or analysis.as_built(circuit)
+    hr = analysis.headroom(circuit, ab, input_peak_v, target.f_high_hz if target else None)
+    warnings = [_warn(c, m) for c, m in analysis.circuit_warnings(circuit) + hr.warnings]
+    if not analysis.flat_outside_band(ab, None):
+        warnings.append(_warn("response_outside_band",
+                              f"The response rises to {ab.outside_max_db:.2f} dB of midband "
+                              "outside its -3 dB band (peaking, e.g. from a weak bias bypass)."))
+    out = {
+        "performance": {"as_built": ab.to_dict()},
+        "headroom": {"stages": hr.stages, "overall": hr.overall},
+        "bias": bias_block(circuit, bias_reason),
+        "warnings": warnings,
+        "cautions": list(CAUTIONS),
+    }
+    if target is not None:
+        status, shortfalls = analysis.status_of(ab, target)
+        out["status"] = status
+        out["shortfalls"] = shortfalls
+        if status != "meets_target":
+            warnings.append(_warn("target_not_met", "The as-built circuit misses the target: "
+                                  + "; ".join(f"{s['quantity']} {s['achieved']:.6g} vs "
+                                              f"{s['target']:.6g}" for s in shortfalls)))
+    return out
+
+
+def tradeoff_block(design: Design) -> dict:
+    """Ideal figures for n = 1..12 and the stage count that maximises ideal bandwidth."""
+    req = design.request
+    t = req.target
+    op = req.opamp
+    rows = []
+    for n in range(1, ideal.MAX_STAGES + 1):
+        ic = ideal.ideal_cascade(t.gain, t.f_low_hz, op.gbw_hz, n, req.topology)
+        stable = ideal.noise_gain(ic.stage_gain, req.topology) >= op.min_stable_gain
+        units = n + (1 if req.supply.kind == "single" and n % op.channels_per_package else 0)
+        rows.append({
+            "stages": n,
+            "stage_gain": ic.stage_gain,
+            "stage_gain_db": 20.0 * math.log10(ic.stage_gain),
+            "stage_f_high_hz": ic.stage_f_high_hz,
+            "f_high_hz": ic.f_high_hz,
+            "stage_f_low_hz": ic.stage_f_low_hz,
+            "stable": stable,
+            "meets_target": stable and ic.f_high_hz >= t.f_high_hz,
+            "opamp_packages": math.ceil(units / op.channels_per_package),
+            "part_count": _part_count(req, n, units),
+        })
+    stable_rows = [r for r in rows if r["stable"]] or rows
+    best = max(stable_rows, key=lambda r: (r["f_high_hz"], -r["stages"]))
+    need_gbw, need_n = ideal.required_gbw_hz(t.gain, t.f_high_hz, req.topology)
+    reachable = any(r["meets_target"] for r in rows)
+    return {
+        "rows": rows,
+        "optimal_stages": ideal.optimal_stage_count(t.gain, req.topology),
+        "best_stages": best["stages"],
+        "required_gbw_hz": None if reachable else need_gbw,
+        "required_gbw_stages": None if reachable else need_n,
+    }
+
+
+def _part_count(req, n: int, units: int) -> int:
+    """Resistors and capacitors of the signal path and bias, plus op-amp packages."""
+    ac = req.target.f_low_hz > 0
+    per_stage = (5 if req.topology == NON_INVERTING else 3) if ac else 2
+    single = req.supply.kind == "single"
+    passives = n * per_stage + (4 if single else 0)  # divider (2), bypass, output capacitor
+    return passives + math.ceil(units / req.opamp.channels_per_package)
+
+
+def design_block(design: Design) -> dict:
+    """The complete design response (without the optional analyses blocks)."""
+    req = design.request
+    syn = design.synthesis
+    circuit = syn.circuit
+    body = analysis_block(circuit, target=req.target, input_peak_v=req.signal.input_peak_v,
+                          bias_reason=syn.bias_reason, ab=syn.as_built)
+    return {
+        "name": req.name,
+        "status": body.pop("status"),
+        "shortfalls": body.pop("shortfalls"),
+        "target": req.target.to_dict(),
+        "stage_count": circuit.n_stages,
+        "topology": circuit.topology,
+        "circuit": circuit.to_dict(),
+        "performance": {"ideal": design.ideal.to_dict(),
+                        "as_built": body["performance"]["as_built"]},
+        "headroom": body["headroom"],
+        "bias": body["bias"],
+        "tradeoff": tradeoff_block(design),
+        "warnings": body["warnings"],
+        "cautions": body["cautions"],
+    }
+
+
+def is_inverting_overall(circuit: Circuit) -> bool:
+    """Sign of the overall midband gain by topology alone (odd number of inverting stages)."""
+    return circuit.topology == INVERTING and circuit.n_stages % 2 == 1
