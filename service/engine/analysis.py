@@ -64,9 +64,13 @@ def _none_if_nan(x: float):
     return None if x is None or not math.isfinite(x) else float(x)
 
 
-def as_built(circuit: Circuit) -> AsBuilt:
-    """Midband gain, corners and per-stage figures of the circuit (see module docstring)."""
-    n = circuit.n_stages
+def as_built(circuit: Circuit, *, per_stage: bool = True) -> AsBuilt:
+    """Midband gain, corners and per-stage figures of the circuit (see module docstring).
+
+    ``per_stage=False`` skips the per-stage corners (their entries are then empty), for
+    the synthesis loop that only needs the overall figures.
+    """
+    n = circuit.n_stages if per_stage else 0
 
     def evaluate(f):
         sol = chain.solve(circuit, f)
@@ -85,10 +89,10 @@ def as_built(circuit: Circuit) -> AsBuilt:
          "f_high_hz": _none_if_nan(float(band.f_high_hz[k + 1]))}
         for k in range(n)
     ]
-    stage_peak = [float(np.abs(sol.stage_out[k][0])) for k in range(n)]
+    stage_peak = [float(np.abs(sol.stage_out[k][0])) for k in range(circuit.n_stages)]
     if circuit.topology == NON_INVERTING:
         pos = []
-        for k in range(n):
+        for k in range(circuit.n_stages):
             st = circuit.stages[k]
             x = sol.stage_in[k][0]
             if st.c_couple_f is None or st.r_bias_ohm is None:
@@ -98,7 +102,7 @@ def as_built(circuit: Circuit) -> AsBuilt:
                 p = (x * st.r_bias_ohm + sol.vref[0] * zc) / (zc + st.r_bias_ohm)
             pos.append(float(np.abs(p - sol.vref[0])))
     else:
-        pos = [0.0] * n
+        pos = [0.0] * circuit.n_stages
     gain = float(band.gain[0])
     return AsBuilt(
         gain=gain, gain_db=20.0 * math.log10(gain),

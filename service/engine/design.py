@@ -189,7 +189,7 @@ def synthesize(req: DesignRequest, n: int) -> Synthesis:
     result = None
     for _ in range(GAIN_PASSES):
         circuit = _with_low_side(req, pairs, bias) if ac else _dc_circuit(req, pairs)
-        result = as_built(circuit)
+        result = as_built(circuit, per_stage=False)
         ideal_product = math.prod(_pair_gain(p, topo, rs, k) for k, p in enumerate(pairs))
         if abs(math.log(target.gain / result.gain)) < 1e-5:
             break
@@ -200,7 +200,7 @@ def synthesize(req: DesignRequest, n: int) -> Synthesis:
         pairs = new
     if bias is not None and not bias.buffered:
         circuit, result, bias_reason = _settle_bias(req, pairs, circuit, result, bias_reason)
-    return Synthesis(circuit=circuit, as_built=result, bias_reason=bias_reason)
+    return Synthesis(circuit=circuit, as_built=as_built(circuit), bias_reason=bias_reason)
 
 
 def _pair_gain(pair, topology, rs, k) -> float:
@@ -258,7 +258,7 @@ def _settle_bias(req, pairs, circuit, result, reason):
         bigger = float(_round_up(req.components.capacitor_series, bias.c_bypass_f * BYPASS_GROWTH))
         bias = replace(bias, c_bypass_f=bigger)
         circuit = _with_low_side(req, pairs, bias)
-        result = as_built(circuit)
+        result = as_built(circuit, per_stage=False)
         reason = ("VMID is the bypassed divider; the bypass was enlarged until the shared "
                   "bias node no longer lifted the response outside the band (no "
                   "low-frequency peaking).")
@@ -339,7 +339,7 @@ def _with_low_side(req: DesignRequest, pairs, bias) -> Circuit:
     chosen = None
     for i in candidates[:6]:
         chosen = _pick(req, pairs, bias, cc, rb, cg, c_out, i)
-        ab = as_built(chosen)
+        ab = as_built(chosen, per_stage=False)
         if not math.isnan(ab.f_low_hz) and ab.f_low_hz <= req.target.f_low_hz:
             return chosen
     return _pick(req, pairs, bias, cc, rb, cg, c_out, candidates[0] if candidates else 0)
@@ -366,7 +366,7 @@ def _f_low_estimates(params: chain.ChainParams, req: DesignRequest) -> np.ndarra
     """
     t = req.target
     f_mid = math.sqrt(t.f_low_hz * t.f_high_hz)
-    grid = np.geomspace(t.f_low_hz / 300.0, f_mid, 80)
+    grid = np.geomspace(t.f_low_hz / 300.0, f_mid, 48)
     f = np.concatenate([grid, [f_mid]])[None, :]
     mag = np.abs(chain.solve_params(params, f).vout)
     mag = np.broadcast_to(mag, (SIGMA_GRID.size, f.shape[1]))

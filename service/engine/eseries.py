@@ -13,6 +13,7 @@ IEC 60063:2015, "Preferred number series for resistors and capacitors".
 from __future__ import annotations
 
 import math
+from functools import lru_cache
 
 import numpy as np
 
@@ -47,8 +48,17 @@ def _clean(mantissa: float, exponent: int) -> float:
     return float(f"{mantissa:.2f}e{exponent}")
 
 
+@lru_cache(maxsize=256)
+def _values_between(series: str, low: float, high: float) -> tuple:
+    return tuple(values_between_uncached(series, low, high))
+
+
 def values_between(series: str, low: float, high: float) -> np.ndarray:
     """All values of ``series`` in ``[low, high]`` (ascending)."""
+    return np.array(_values_between(series, low, high))
+
+
+def values_between_uncached(series: str, low: float, high: float) -> list:
     mantissas = SERIES[series]
     out = []
     for exponent in range(math.floor(math.log10(low)) - 1, math.floor(math.log10(high)) + 1):
@@ -56,7 +66,7 @@ def values_between(series: str, low: float, high: float) -> np.ndarray:
             v = _clean(m, exponent)
             if low <= v <= high:
                 out.append(v)
-    return np.array(out)
+    return out
 
 
 def neighbours(series: str, value: float) -> tuple[float, float]:

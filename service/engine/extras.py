@@ -1,8 +1,51 @@
-"""Placeholder: the analyses work fills this in (noise, supply rejection, tolerance, response).
+"""The analyses added to every design and analysis response (one entry point for the pipeline).
 
-``extra_blocks(circuit, *, target, input_peak_v, as_built, options) -> dict``
+``extra_blocks(circuit, *, target, input_peak_v, as_built, options) -> dict`` returns the
+JSON-ready blocks, whose keys go at the top level of the response:
+
+* ``noise`` (always; :mod:`service.engine.noise`);
+* ``supply_rejection`` (always; null on a dual supply; :mod:`service.engine.supply_rejection`);
+* ``tolerance`` when ``options["tolerance"]`` is given (:mod:`service.engine.montecarlo`);
+* ``response`` when ``options["response"]`` is given (:mod:`service.engine.response`).
+
+``options`` keys: ``tolerance`` ``{trials, seed, resistor_tolerance_pct,
+capacitor_tolerance_pct, gbw_tolerance_pct}``; ``response`` ``{points, f_start_hz,
+f_stop_hz}``; ``temperature_k`` (default 300); ``supply_rejection_hz`` (optional).
+Non-finite numbers may remain; the JSON layer writes them as null.
 """
 
+from __future__ import annotations
 
-def extra_blocks(circuit, *, target, input_peak_v, as_built, options) -> dict:
-    return {}
+from service.engine.model import Circuit, Target
+from service.engine.montecarlo import tolerance_block
+from service.engine.noise import DEFAULT_TEMPERATURE_K, noise_block
+from service.engine.response import DEFAULT_POINTS, response_block
+from service.engine.supply_rejection import supply_rejection_block
+
+
+def extra_blocks(circuit: Circuit, *, target: Target | None, input_peak_v: float | None,
+                 as_built: dict, options: dict | None) -> dict:
+    options = options or {}
+    temperature_k = options.get("temperature_k")
+    blocks = {
+        "noise": noise_block(circuit, as_built=as_built, input_peak_v=input_peak_v,
+                             temperature_k=(DEFAULT_TEMPERATURE_K if temperature_k is None
+                                            else float(temperature_k))),
+        "supply_rejection": supply_rejection_block(
+            circuit, extra_hz=options.get("supply_rejection_hz")),
+    }
+    tol = options.get("tolerance")
+    if tol is not None:
+        blocks["tolerance"] = tolerance_block(
+            circuit, target=target, as_built=as_built,
+            trials=int(tol.get("trials", 2000)), seed=int(tol.get("seed", 1)),
+            resistor_tolerance_pct=float(tol["resistor_tolerance_pct"]),
+            capacitor_tolerance_pct=float(tol["capacitor_tolerance_pct"]),
+            gbw_tolerance_pct=float(tol.get("gbw_tolerance_pct") or 0.0),
+        )
+    resp = options.get("response")
+    if resp is not None:
+        blocks["response"] = response_block(
+            circuit, as_built=as_built, points=int(resp.get("points") or DEFAULT_POINTS),
+            f_start_hz=resp.get("f_start_hz"), f_stop_hz=resp.get("f_stop_hz"))
+    return blocks

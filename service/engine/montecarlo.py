@@ -21,14 +21,14 @@ one-sided finite difference at nominal (relative step ``SENSITIVITY_STEP``); the
 (high-end) worst case puts every part at the end of its range that lowers (raises) the
 figure, and evaluates the full model there.
 
-The work is split into chunks of trials (cache-sized arrays) spread over a small thread pool:
-numpy releases the GIL in its array loops, so chunks run in parallel.
+The work is split into chunks of trials (cache-sized arrays); ``workers > 1`` spreads them
+over a thread pool (numpy releases the GIL in its array loops). The default is one worker:
+gunicorn already runs one process per core, and on two cores the pool measured no faster.
 """
 
 from __future__ import annotations
 
 import math
-import os
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, replace
 
@@ -48,6 +48,7 @@ DC_GRID_DECADES = 5.0
 SENSITIVITY_STEP = 1e-4
 #: Trials per chunk: keeps the (trials x frequencies) complex arrays near cache size.
 CHUNK_TRIALS = 500
+DEFAULT_WORKERS = 1
 PERCENTILES = (1, 5, 50, 95, 99)
 FIGURES = ("gain_db", "f_low_hz", "f_high_hz")
 CHAIN_NODAL = "chain-nodal"
@@ -169,11 +170,21 @@ def _polymul(p, q):
     return out
 
 
-def _horner(coeffs, x):
-    value = coeffs[-1]
-    for c in reversed(coeffs[:-1]):
-        value = value * x + c
-    return value
+def _horner_into(coeffs, x, out):
+    """Evaluate the polynomial ``coeffs`` (low first) at ``x`` into ``out``, in place.
+
+    In-place steps avoid a fresh (trials x frequencies) temporary per operation, which on
+    large arrays costs more in page faults than the arithmetic itself.
+    """
+    if len(coeffs) == 1:
+        out[...] = coeffs[0]
+        return out
+    np.multiply(coeffs[-1], x, out=out)
+    out += coeffs[-2]
+    for c in reversed(coeffs[:-2]):
+        out *= x
+        out += c
+    return out
 
 
 def stage_factors(p: ChainParams) -> list:
@@ -245,13 +256,17 @@ def stage_product_mag(p: ChainParams, f_hz, factors: list | None = None) -> np.n
     ``w^2`` whose coefficients are computed once per trial; the grid then costs a few real
     Horner steps per stage, which is what makes this model fast.
     """
-    w = TWO_PI * np.asarray(f_hz, dtype=float)
-    x = w * w
-    mag2 = None
-    for num, den in factors if factors is not None else stage_factors(p):
-        ratio = _horner(num, x) / _horner(den, x)
-        mag2 = ratio if mag2 is None else mag2 * ratio
-    return np.sqrt(mag2)
+    x = np.square(TWO_PI * np.asarray(f_hz, dtype=float))
+    factors = factors if factors is not None else stage_factors(p)
+    shape = np.broadcast_shapes(x.shape, *(np.shape(c) for nd in factors for c in nd[0] + nd[1]))
+    x = np.broadcast_to(x, shape)
+    mag2 = np.ones(shape)
+    num = np.empty(shape)
+    den = np.empty(shape)
+    for n_coeffs, d_coeffs in factors:
+        mag2 *= _horner_into(n_coeffs, x, num)
+        mag2 /= _horner_into(d_coeffs, x, den)
+    return np.sqrt(mag2, out=mag2)
 
 
 def evaluator(params: ChainParams, model: str):
@@ -311,7 +326,7 @@ def run(circuit: Circuit, *, trials: int, tol: Tolerances, rng: np.random.Genera
         p = with_values(params, parts, values[a:b])
         return figures(p, grid_hz, b - a, model)
 
-    workers = workers or min(len(chunks), max(1, os.cpu_count() or 1), 4)
+    workers = workers or DEFAULT_WORKERS
     if workers > 1:
         with ThreadPoolExecutor(max_workers=workers) as pool:
             results = list(pool.map(one, chunks))

@@ -1,0 +1,105 @@
+"""The OpenAPI description: valid (openapi-spec-validator, an independent implementation of
+the OpenAPI 3 specification), complete for the routes the app serves, errors as problem+json."""
+
+from __future__ import annotations
+
+import json
+import re
+
+import pytest
+from openapi_spec_validator import validate
+
+from service.openapi import OPERATIONS, PROBLEM_MEDIA, get_spec, undocumented_routes
+from tests.ops.conftest import make_app
+
+
+@pytest.fixture(scope="module")
+def plain_app():
+    return make_app(test_routes=False)
+
+
+@pytest.fixture(scope="module")
+def spec(plain_app):
+    resp = plain_app.test_client().get("/openapi.json")
+    assert resp.status_code == 200 and resp.mimetype == "application/json"
+    return json.loads(resp.data)
+
+
+def test_spec_validates(spec):
+    validate(spec)  # raises OpenAPIValidationError on any violation
+
+
+def test_spec_with_auth_validates_and_declares_401():
+    app = make_app({"GAINCHAIN_API_KEYS": "k"}, test_routes=False)
+    doc = json.loads(app.test_client().get("/openapi.json").data)
+    validate(doc)
+    assert doc["components"]["securitySchemes"]["bearerAuth"]["scheme"] == "bearer"
+    for path, item in doc["paths"].items():
+        for op in item.values():
+            public = path in {"/healthz", "/readyz", "/metrics", "/openapi.json"}
+            assert ("401" in op["responses"]) is not public, path
+            assert ("security" in op) is not public, path
+
+
+def test_every_route_but_docs_is_documented(plain_app, spec):
+    assert undocumented_routes(plain_app) == []
+    served = {re.sub(r"<(?:[^:>]+:)?([^>]+)>", r"{\1}", rule.rule)
+              for rule in plain_app.url_map.iter_rules()} - {"/docs", "/static/{filename}"}
+    assert served == set(spec["paths"])
+    assert "/docs" not in spec["paths"]
+    for meta in ("/healthz", "/readyz", "/metrics", "/openapi.json"):
+        assert meta in spec["paths"]
+
+
+def test_every_error_status_is_problem_json_with_the_problem_schema(spec):
+    count = 0
+    for item in spec["paths"].values():
+        for op in item.values():
+            for status, resp in op["responses"].items():
+                if int(status) >= 400:
+                    content = resp["content"]
+                    assert list(content) == [PROBLEM_MEDIA]
+                    assert content[PROBLEM_MEDIA]["schema"] == {
+                        "$ref": "#/components/schemas/Problem"}
+                    count += 1
+    assert count > 0
+    problem = spec["components"]["schemas"]["Problem"]
+    assert {"type", "title", "status", "detail"} <= set(problem["properties"])
+
+
+def test_json_bodies_declare_their_errors(spec):
+    for item in spec["paths"].values():
+        for op in item.values():
+            if "requestBody" in op:
+                for status in ("400", "413", "415", "422"):
+                    assert status in op["responses"], op["operationId"]
+
+
+def test_file_media_types(spec):
+    media = {mt for item in spec["paths"].values() for op in item.values()
+             for resp in op["responses"].values() for mt in resp.get("content", {})}
+    assert {"application/json", PROBLEM_MEDIA, "text/plain"} <= media
+    expected_if_served = {"/v1/plots/bode.png": "image/png", "/v1/plots/bode.svg": "image/svg+xml"}
+    for path, mt in expected_if_served.items():
+        if path in spec["paths"]:
+            assert mt in spec["paths"][path]["post"]["responses"]["200"]["content"]
+
+
+def test_table_has_one_row_per_operation():
+    keys = [(op.path, op.method) for op in OPERATIONS]
+    assert len(keys) == len(set(keys))
+
+
+def test_spec_is_built_once_per_app(plain_app):
+    assert get_spec(plain_app) is get_spec(plain_app)
+
+
+def test_docs_page_is_self_contained(plain_app, spec):
+    resp = plain_app.test_client().get("/docs")
+    assert resp.status_code == 200 and resp.mimetype == "text/html"
+    html = resp.get_data(as_text=True)
+    assert "<script" not in html.lower()
+    # No run-time download: no external stylesheets, scripts, images or fonts.
+    assert not re.search(r"""(?:src|href)\s*=\s*["']?(?:https?:)?//""", html)
+    for path in spec["paths"]:
+        assert path in html
