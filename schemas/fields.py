@@ -12,8 +12,10 @@ from marshmallow import fields
 class StrictFloat(fields.Float):
     """A JSON number (int or float, not bool, not a string), finite."""
 
-    default_error_messages = {"invalid": "Not a valid number.",
-                              "special": "Special numeric values (nan or infinity) are not permitted."}
+    default_error_messages = {
+        "invalid": "Not a valid number.",
+        "special": "Special numeric values (nan or infinity) are not permitted.",
+    }
 
     def __init__(self, **kwargs):
         kwargs.setdefault("allow_nan", False)

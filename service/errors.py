@@ -112,8 +112,9 @@ def get_json_body() -> object:
     """
     mimetype = request.mimetype or ""
     if not (mimetype == "application/json" or mimetype.endswith("+json")):
+        got = mimetype or "no Content-Type"
         raise ApiProblem(415, "Unsupported media type",
-                         f"Send the body as application/json (got {mimetype or 'no Content-Type'}).")
+                         f"Send the body as application/json (got {got}).")
     raw = request.get_data(cache=True)
     try:
         text = raw.decode("utf-8")

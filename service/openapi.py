@@ -14,12 +14,14 @@ dumps the bodies. The spec is built once per app (:func:`get_spec`) and cached i
 
 from __future__ import annotations
 
-import copy
 import importlib
+import re
 from dataclasses import dataclass, field
 
 from apispec import APISpec
 from apispec.ext.marshmallow import MarshmallowPlugin
+from marshmallow import Schema, fields
+from marshmallow.validate import Length
 
 OPENAPI_VERSION = "3.0.3"
 PROBLEM_MEDIA = "application/problem+json"
@@ -78,11 +80,23 @@ class Operation:
     description: str = ""
     public: bool = False  # True: never needs an API key (probes, metrics, the spec)
     parameters: dict = field(default_factory=dict)  # extra docs per path parameter
+    path_enums: dict = field(default_factory=dict)  # path parameter -> "module:TUPLE" of values
+    query: tuple = ()  # OpenAPI parameter objects for the query string (values may be refs)
 
+
+_PLOT_BODY = {"anyOf": ["schemas.request:DesignRequestSchema",
+                        "schemas.request:AnalysisRequestSchema"]}
+_PLOT_QUERY = tuple(
+    {"name": name, "in": "query", "required": False, "description": f"Image {what} in pixels.",
+     "schema": {"type": "integer", "minimum": "service.blueprints.plots:MIN_PX",
+                "maximum": "service.blueprints.plots:MAX_PX", "default": default}}
+    for name, what, default in (("width_px", "width", 900), ("height_px", "height", 600)))
+_PLOT_DESCRIPTION = ("The body is a design request (as for POST /v1/designs) or a circuit "
+                     "with an optional target (as for POST /v1/analyses).")
 
 OPERATIONS: tuple[Operation, ...] = (
     Operation("/healthz", "GET", "Liveness probe: the process answers.", "meta",
-              {200: {JSON: "schemas.response:HealthSchema"}}, public=True),
+              {200: {JSON: "service.ops.meta:HealthSchema"}}, public=True),
     Operation("/readyz", "GET", "Readiness probe: the op-amp catalog is loaded.", "meta",
               {200: {JSON: "service.ops.meta:ReadySchema"}}, errors=(503,), public=True),
     Operation("/metrics", "GET", "Prometheus metrics (text exposition format).", "meta",
@@ -90,29 +104,107 @@ OPERATIONS: tuple[Operation, ...] = (
     Operation("/openapi.json", "GET", "This OpenAPI 3 description.", "meta",
               {200: {JSON: ANY_OBJECT}}, public=True),
     Operation("/v1/opamps", "GET", "List the op-amp catalog.", "opamps",
-              {200: {JSON: "schemas.response:OpampListSchema"}}),
+              {200: {JSON: "schemas.opamp:OpAmpListSchema"}}),
     Operation("/v1/opamps/<opamp_id>", "GET", "One op-amp of the catalog.", "opamps",
-              {200: {JSON: "schemas.circuit:OpampSchema"}}, errors=(404,),
+              {200: {JSON: "schemas.opamp:OpAmpOutSchema"}}, errors=(404,),
               parameters={"opamp_id": "Catalog id (see GET /v1/opamps)."}),
     Operation("/v1/designs", "POST", "Design a cascade of gain stages for a target.", "designs",
               {200: {JSON: "schemas.response:DesignResponseSchema"}},
               request="schemas.request:DesignRequestSchema", errors=COMPUTE_ERRORS),
     Operation("/v1/designs/batch", "POST", "Design up to 100 targets in one call.", "designs",
-              {200: {JSON: "schemas.response:BatchResponseSchema"}},
-              request="schemas.request:BatchRequestSchema", errors=COMPUTE_ERRORS),
+              {200: {JSON: {"type": "object", "additionalProperties": False,
+                            "required": ["results"],
+                            "properties": {"results": {"type": "array", "items": {
+                                "type": "object", "additionalProperties": False,
+                                "required": ["status"],
+                                "properties": {
+                                    "status": {"type": "integer"},
+                                    "design": "schemas.response:DesignResponseSchema",
+                                    "problem": PROBLEM_SCHEMA}}}}}}},
+              request={"type": "object", "additionalProperties": False, "required": ["requests"],
+                       "properties": {"requests": {
+                           "type": "array", "maxItems": "service.blueprints.batch:MAX_BATCH",
+                           "items": "schemas.request:DesignRequestSchema"}}},
+              errors=COMPUTE_ERRORS,
+              description="Results come in request order; a bad item gets a problem document "
+                          "in its slot (status 4xx) and does not fail the others."),
     Operation("/v1/analyses", "POST", "Analyse a (possibly hand-edited) circuit.", "analyses",
               {200: {JSON: "schemas.response:AnalysisResponseSchema"}},
               request="schemas.request:AnalysisRequestSchema", errors=COMPUTE_ERRORS),
-    Operation("/v1/exports/<format>", "POST", "Export a design or circuit as a file.", "exports",
+    Operation("/v1/exports/<kind>", "POST", "Export a design or a circuit as a file.", "exports",
               {200: {CSV: TEXT_BODY, XLSX: BINARY, TEXT: TEXT_BODY, XML: TEXT_BODY}},
-              request="schemas.request:ExportRequestSchema", errors=COMPUTE_ERRORS + (404,)),
-    Operation("/v1/plots/bode.svg", "POST", "Bode plot of a circuit as SVG.", "plots",
-              {200: {SVG: TEXT_BODY}}, request="schemas.request:PlotRequestSchema",
-              errors=COMPUTE_ERRORS),
-    Operation("/v1/plots/bode.png", "POST", "Bode plot of a circuit as PNG.", "plots",
-              {200: {PNG: BINARY}}, request="schemas.request:PlotRequestSchema",
-              errors=COMPUTE_ERRORS),
+              request={"anyOf": ["schemas.request:DesignRequestSchema",
+                                 "service.openapi:ExportCircuitBodySchema"]},
+              errors=COMPUTE_ERRORS + (404,),
+              description="The body is a design request (designed first) or "
+                          "{name, circuit}. bom.csv -> text/csv, bom.xlsx -> xlsx workbook, "
+                          "netlist.cir -> SPICE deck (text/plain), netlist.net -> KiCad "
+                          "S-expression netlist (text/plain), netlist.xml -> KiCad XML netlist.",
+              path_enums={"kind": "exporters.formats:KINDS"},
+              parameters={"kind": "File kind."},
+              query=({"name": "size", "in": "query", "required": False,
+                      "description": "Chip size of resistors and ceramic capacitors.",
+                      "schema": {"type": "string", "enum": "exporters.board:SIZES",
+                                 "default": "0603"}},
+                     {"name": "date", "in": "query", "required": False,
+                      "description": "ISO date written into the file headers (none: no date).",
+                      "schema": {"type": "string", "format": "date"}})),
+    Operation("/v1/plots/bode.svg", "POST", "Bode plot (SVG) of a design or a circuit.",
+              "plots", {200: {SVG: TEXT_BODY}}, request=_PLOT_BODY, query=_PLOT_QUERY,
+              errors=COMPUTE_ERRORS, description=_PLOT_DESCRIPTION),
+    Operation("/v1/plots/bode.png", "POST", "Bode plot (PNG) of a design or a circuit.",
+              "plots", {200: {PNG: BINARY}}, request=_PLOT_BODY, query=_PLOT_QUERY,
+              errors=COMPUTE_ERRORS, description=_PLOT_DESCRIPTION),
 )
+
+
+class ExportCircuitBodySchema(Schema):
+    """Body of POST /v1/exports/<kind> when exporting a circuit as it is."""
+
+    name = fields.String(validate=Length(max=80), allow_none=True)
+    circuit = fields.Nested("schemas.circuit.CircuitSchema", required=True)
+
+
+def _custom_fields() -> dict:
+    """JSON Schema for the project's custom marshmallow fields (the plugin cannot infer them).
+
+    Keys are "module:Class"; values are functions of the converter (to reference nested
+    schemas) returning the property dict.
+    """
+    return {
+        "schemas.request:StagesField": lambda conv: {"oneOf": [
+            {"type": "string", "enum": ["auto"]},
+            {"type": "integer", "minimum": 1, "maximum": _max_stages()}]},
+        "schemas.opamp:OpAmpField": lambda conv: {"oneOf": [
+            {"type": "string", "minLength": 1, "maxLength": 80,
+             "description": "Catalog id (GET /v1/opamps)."},
+            conv.resolve_nested_schema(_resolve("schemas.opamp:OpAmpSchema"))]},
+    }
+
+
+def _max_stages() -> int:
+    try:
+        return int(_resolve("schemas.request:MAX_STAGES"))
+    except (ImportError, AttributeError):
+        return 12
+
+
+def _custom_field_attributes():
+    table = {}
+    for ref, make in _custom_fields().items():
+        try:
+            table[_resolve(ref)] = make
+        except (ImportError, AttributeError):
+            continue  # that schema module is not there (yet): nothing to describe
+
+    def attribute_function(conv, field_obj, **kwargs):
+        for cls, make in table.items():
+            if type(field_obj) is cls:
+                return make(conv)
+        return {}
+
+    return attribute_function
+
 
 INFO_DESCRIPTION = """\
 Stateless JSON service that designs cascades of capacitively coupled op-amp gain stages.
@@ -146,9 +238,24 @@ def _resolve(ref):
     return ref
 
 
+_REF_RE = re.compile(r"^[a-z_][\w.]*:[A-Za-z_]\w*$")
+
+
 def _schema_entry(ref):
-    resolved = _resolve(ref)
-    return copy.deepcopy(resolved) if isinstance(resolved, dict) else resolved
+    """Resolve "module:NAME" strings anywhere in a schema description.
+
+    A marshmallow schema class stays a class (the plugin turns it into a $ref); a tuple of
+    values (``enum``) becomes a sorted list; dicts and lists are walked.
+    """
+    if isinstance(ref, str) and _REF_RE.match(ref):
+        ref = _resolve(ref)
+        if isinstance(ref, tuple | frozenset | set):
+            return sorted(ref)
+    if isinstance(ref, dict):
+        return {k: _schema_entry(v) for k, v in ref.items()}
+    if isinstance(ref, list | tuple):
+        return [_schema_entry(v) for v in ref]
+    return ref
 
 
 def _app_routes(app) -> dict[str, object]:
@@ -178,7 +285,9 @@ def _path_parameters(rule, op: Operation) -> list[dict]:
         schema: dict = {"type": "string"}
         items = getattr(converter, "items", None)
         kind = type(converter).__name__
-        if items:
+        if name in op.path_enums:
+            schema = {"type": "string", "enum": _schema_entry(op.path_enums[name])}
+        elif items:
             schema = {"type": "string", "enum": sorted(items)}
         elif kind == "IntegerConverter":
             schema = {"type": "integer"}
@@ -199,13 +308,15 @@ def _problem_response(status: int) -> dict:
 def build_spec(app) -> dict:
     """Build the OpenAPI document for the routes ``app`` serves (see :data:`OPERATIONS`)."""
     auth_enabled = bool(app.extensions.get("gainchain_ops", {}).get("auth_enabled"))
+    plugin = MarshmallowPlugin()
     spec = APISpec(
         title="gainchain",
         version=_version(),
         openapi_version=OPENAPI_VERSION,
-        plugins=[MarshmallowPlugin()],
+        plugins=[plugin],
         info={"description": INFO_DESCRIPTION},
     )
+    plugin.converter.add_attribute_function(_custom_field_attributes())
     spec.components.security_scheme(
         "bearerAuth", {"type": "http", "scheme": "bearer",
                        "description": "API key (GAINCHAIN_API_KEYS / GAINCHAIN_API_KEYS_FILE)."})
@@ -220,6 +331,7 @@ def build_spec(app) -> dict:
         if op.description:
             operation["description"] = op.description
         params = _path_parameters(rule, op)
+        params += [_schema_entry(q) for q in op.query]
         if params:
             operation["parameters"] = params
         if op.request is not None:

@@ -9,7 +9,6 @@ path validates and computes the same way. Raises ``marshmallow.ValidationError``
 from __future__ import annotations
 
 import time
-from dataclasses import replace
 
 from marshmallow import ValidationError
 
@@ -136,6 +135,3 @@ def run_analysis(body) -> dict:
                                    as_built=out["performance"]["as_built"], options=options))
     return out
 
-
-def with_stages(req: DesignRequest, n: int) -> DesignRequest:
-    return replace(req, stages=n)

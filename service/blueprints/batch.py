@@ -1,5 +1,67 @@
-"""Placeholder: filled in by the analyses work (POST /v1/designs/batch)."""
+"""POST /v1/designs/batch: up to ``MAX_BATCH`` design requests in one call.
+
+Each item is designed exactly as POST /v1/designs would (``service.pipeline.run_design``);
+a bad item becomes a problem document in its slot and does not fail the others.
+"""
+
+from __future__ import annotations
 
 from flask import Blueprint
+from marshmallow import ValidationError
 
-bp = Blueprint("batch", __name__)
+from service.engine.errors import EngineError
+from service.errors import (ApiProblem, engine_problem, get_json_body, problem_body,
+                            validation_problem)
+from service.ops import budget
+from service.pipeline import run_design
+from service.views import json_response
+
+bp = Blueprint("batch", __name__, url_prefix="/v1")
+
+MAX_BATCH = 100
+
+
+def _requests_of(body) -> list:
+    if not isinstance(body, dict):
+        raise ValidationError({"_schema": ["The body must be a JSON object with 'requests'."]})
+    unknown = sorted(set(body) - {"requests"})
+    if unknown:
+        raise ValidationError({key: ["Unknown field."] for key in unknown})
+    items = body.get("requests")
+    if items is None:
+        raise ValidationError({"requests": ["Missing data for required field."]})
+    if not isinstance(items, list):
+        raise ValidationError({"requests": ["Not a valid list."]})
+    if len(items) > MAX_BATCH:
+        raise ValidationError({"requests": [f"At most {MAX_BATCH} requests per batch "
+                                            f"(got {len(items)})."]})
+    return items
+
+
+def design_one(item) -> dict:
+    """One batch slot: ``{"status": 200, "design": ...}`` or ``{"status": 4xx, "problem": ...}``."""
+    try:
+        return {"status": 200, "design": run_design(item)}
+    except ValidationError as err:
+        problem = validation_problem(err)
+    except EngineError as err:
+        problem = engine_problem(err)
+    except ApiProblem as err:
+        problem = problem_body(err.status, err.title, err.detail, type_=err.type_,
+                               errors=err.errors, **err.extensions)
+    return {"status": problem["status"], "problem": problem}
+
+
+@bp.post("/designs/batch")
+def create_designs():
+    """Design up to 100 cascades; results in request order.
+
+    :raise 400: malformed JSON. :raise 415: not JSON. :raise 422: the body is not
+        ``{"requests": [...]}`` or holds more than 100 items.
+    """
+    items = _requests_of(get_json_body())
+    results = []
+    for i, item in enumerate(items):
+        budget.check(f"batch item {i}")
+        results.append(design_one(item))
+    return json_response({"results": results})

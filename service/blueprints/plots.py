@@ -1,5 +1,145 @@
-"""Placeholder: filled in by the plots work."""
+"""POST /v1/plots/bode.svg and /v1/plots/bode.png: the response curves drawn with matplotlib.
 
-from flask import Blueprint
+Body: a design request (as for POST /v1/designs) or ``{"circuit": ..., "target": optional}``
+(as for POST /v1/analyses). Query: ``width_px``, ``height_px`` (``MIN_PX``..``MAX_PX``).
+The cascade's Vout/Vs is drawn bold, each stage's cumulative output lighter; the target band
+and corners carry the SVG ids ``target-band``, ``target-f-low``, ``target-f-high``
+(matplotlib's gid) so that portals can restyle them.
+"""
 
-bp = Blueprint("plots", __name__)
+from __future__ import annotations
+
+import io
+import math
+
+from flask import Blueprint, Response, request
+from marshmallow import ValidationError
+
+from service.errors import get_json_body
+from service.pipeline import run_analysis, run_design
+
+bp = Blueprint("plots", __name__, url_prefix="/v1/plots")
+
+MIN_PX, MAX_PX = 200, 4000
+DEFAULT_WIDTH_PX, DEFAULT_HEIGHT_PX = 900, 600
+DPI = 100
+CURVE_POINTS = 400
+
+
+def _size() -> tuple[int, int]:
+    errors = {}
+    sizes = []
+    for name, default in (("width_px", DEFAULT_WIDTH_PX), ("height_px", DEFAULT_HEIGHT_PX)):
+        raw = request.args.get(name)
+        if raw is None:
+            sizes.append(default)
+            continue
+        if not raw.isdigit() or not MIN_PX <= int(raw) <= MAX_PX:
+            errors[name] = [f"An integer from {MIN_PX} to {MAX_PX} (got {raw!r})."]
+            continue
+        sizes.append(int(raw))
+    if errors:
+        raise ValidationError(errors)
+    return sizes[0], sizes[1]
+
+
+def _result_and_target(body) -> tuple[dict, dict | None]:
+    if not isinstance(body, dict):
+        raise ValidationError({"_schema": ["The body must be a JSON object."]})
+    body = dict(body)
+    body.setdefault("response", {"points": CURVE_POINTS})
+    if "circuit" in body:
+        result = run_analysis(body)
+        target = result.get("target") or body.get("target")
+    else:
+        result = run_design(body)
+        target = result.get("target")
+    return result, target
+
+
+def _target_gain_db(target: dict) -> float | None:
+    if target.get("gain_db") is not None:
+        return float(target["gain_db"])
+    if target.get("gain") is not None and target["gain"] > 0:
+        return 20.0 * math.log10(float(target["gain"]))
+    return None
+
+
+def render(result: dict, target: dict | None, *, fmt: str, width_px: int,
+           height_px: int) -> bytes:
+    """Draw the Bode plot of a design/analysis result; ``fmt`` is "svg" or "png"."""
+    import matplotlib
+
+    matplotlib.use("Agg", force=False)
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    resp = result["response"]
+    f = resp["frequency_hz"]
+    with matplotlib.rc_context({"svg.hashsalt": "gainchain", "svg.fonttype": "path"}):
+        fig = Figure(figsize=(width_px / DPI, height_px / DPI), dpi=DPI)
+        FigureCanvasAgg(fig)
+        ax_g, ax_p = fig.subplots(2, 1, sharex=True)
+        for st in resp["stages"]:
+            ax_g.semilogx(f, _num(st["gain_db"]), lw=1.0, alpha=0.55,
+                          label=f"stage {st['stage']}", gid=f"stage-{st['stage']}-gain")
+            ax_p.semilogx(f, _num(st["phase_deg"]), lw=1.0, alpha=0.55,
+                          gid=f"stage-{st['stage']}-phase")
+        ax_g.semilogx(f, _num(resp["gain_db"]), lw=2.4, color="black", label="cascade",
+                      gid="cascade-gain")
+        ax_p.semilogx(f, _num(resp["phase_deg"]), lw=2.4, color="black", gid="cascade-phase")
+        if target:
+            f_lo = float(target.get("f_low_hz") or 0.0)
+            f_hi = float(target["f_high_hz"])
+            left = f_lo if f_lo > 0 else f[0]
+            ax_g.axvspan(left, f_hi, color="tab:green", alpha=0.12, gid="target-band",
+                         label="target band")
+            if f_lo > 0:
+                ax_g.axvline(f_lo, color="tab:green", ls="--", lw=1.2, gid="target-f-low")
+            ax_g.axvline(f_hi, color="tab:green", ls="--", lw=1.2, gid="target-f-high")
+            gain_db = _target_gain_db(target)
+            if gain_db is not None:
+                ax_g.axhline(gain_db, color="tab:green", ls=":", lw=1.0, gid="target-gain")
+        ax_g.set_ylabel("gain (dB)")
+        ax_p.set_ylabel("phase (deg)")
+        ax_p.set_xlabel("frequency (Hz)")
+        ax_g.set_xlim(f[0], f[-1])
+        for ax in (ax_g, ax_p):
+            ax.grid(True, which="both", alpha=0.3)
+        ax_g.legend(loc="lower center", fontsize="small")
+        fig.tight_layout()
+        buf = io.BytesIO()
+        if fmt == "svg":
+            fig.savefig(buf, format="svg", metadata={"Date": None})
+        else:
+            fig.savefig(buf, format="png", dpi=DPI, metadata={"Software": None})
+    return buf.getvalue()
+
+
+def _num(values):
+    return [math.nan if v is None else v for v in values]
+
+
+def _plot(fmt: str, mimetype: str) -> Response:
+    width_px, height_px = _size()
+    result, target = _result_and_target(get_json_body())
+    data = render(result, target, fmt=fmt, width_px=width_px, height_px=height_px)
+    return Response(data, status=200, mimetype=mimetype)
+
+
+@bp.post("/bode.svg")
+def bode_svg():
+    """Bode plot (SVG) of a design request or a circuit.
+
+    :raise 400: malformed JSON. :raise 415: not JSON. :raise 422: invalid body or size.
+    """
+    return _plot("svg", "image/svg+xml")
+
+
+@bp.post("/bode.png")
+def bode_png():
+    """Bode plot (PNG) of a design request or a circuit.
+
+    :raise 400: malformed JSON. :raise 415: not JSON. :raise 422: invalid body or size.
+    """
+    return _plot("png", "image/png")

@@ -143,10 +143,13 @@ def _refine_peak(evaluate, grid_hz, mag, k):
 def _illinois(g, a, b, ga, gb):
     """Vectorised Illinois regula falsi for roots of ``g`` bracketed by [a, b]."""
     side = np.zeros_like(a)
+    # Rows without a sign change (no crossing; masked by the caller) must not wander off.
+    lo, hi = np.minimum(a, b), np.maximum(a, b)
     for _ in range(REFINE_STEPS):
-        with np.errstate(divide="ignore", invalid="ignore"):
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
             c = np.where(gb != ga, (a * gb - b * ga) / (gb - ga), 0.5 * (a + b))
         c = np.where(np.isfinite(c), c, 0.5 * (a + b))
+        c = np.clip(c, lo, hi)
         gc = g(c)
         same_as_b = np.sign(gc) == np.sign(gb)
         # Replace b by c where g(c) has b's sign; halve the stale end value if it repeats.

@@ -29,8 +29,8 @@ from functools import lru_cache
 
 import numpy as np
 
-from service.engine import chain, eseries, ideal
-from service.engine.analysis import AsBuilt, as_built, flat_outside_band
+from service.engine import chain, corners, eseries, ideal
+from service.engine.analysis import AsBuilt, as_built, flat_outside_band, peak_deficit_db
 from service.engine.errors import EngineError
 from service.engine.model import (
     DUAL,
@@ -53,6 +53,8 @@ BYPASS_POLE_RATIO = 20.0
 #: Growth of the bypass capacitor per attempt, and the attempts before buffering.
 BYPASS_GROWTH = 3.3
 BYPASS_ATTEMPTS = 5
+#: Stage 1's bias resistor is at least this multiple of the source impedance.
+SOURCE_LOAD_RATIO = 10.0
 #: Gain-correction passes (each re-chooses the last stage's pair).
 GAIN_PASSES = 3
 
@@ -253,7 +255,7 @@ def _settle_bias(req, pairs, circuit, result, reason):
     target = req.target
     bias = circuit.bias
     for _ in range(BYPASS_ATTEMPTS):
-        if flat_outside_band(result, target):
+        if flat_outside_band(result, target, circuit):
             return circuit, result, reason
         bigger = float(_round_up(req.components.capacitor_series, bias.c_bypass_f * BYPASS_GROWTH))
         bias = replace(bias, c_bypass_f=bigger)
@@ -262,7 +264,7 @@ def _settle_bias(req, pairs, circuit, result, reason):
         reason = ("VMID is the bypassed divider; the bypass was enlarged until the shared "
                   "bias node no longer lifted the response outside the band (no "
                   "low-frequency peaking).")
-    if flat_outside_band(result, target) or req.opamp.min_stable_gain > 1.0:
+    if flat_outside_band(result, target, circuit) or req.opamp.min_stable_gain > 1.0:
         return circuit, result, reason
     bias = replace(bias, buffered=True, c_bypass_f=_bypass_for(
         req, bias.r_top_ohm, bias.r_bottom_ohm, len(pairs)))
@@ -303,11 +305,15 @@ def _with_low_side(req: DesignRequest, pairs, bias) -> Circuit:
     sigma = SIGMA_GRID[:, None]  # (S, 1)
     p = sigma * req.target.f_low_hz * ideal.shrinkage(m)
     rb0 = float(_nearest(rser, comp.impedance_ohm))
+    # Stage 1's bias resistor also loads the source: keep it at least SOURCE_LOAD_RATIO
+    # times the source impedance so the input divider costs under ~1 dB (common practice).
+    rb0_first = float(_nearest(rser, max(comp.impedance_ohm, SOURCE_LOAD_RATIO * rs)))
     cc, rb, cg = [], [], []
-    for k, (rf, r2) in enumerate(pairs):
+    for k, (_rf, r2) in enumerate(pairs):
         r_front = rs if k == 0 else 0.0
         if req.topology == NON_INVERTING:
-            c = _round_up(cser, 1.0 / (TWO_PI * (rb0 + r_front) * p))
+            r_level = rb0_first if k == 0 else rb0
+            c = _round_up(cser, 1.0 / (TWO_PI * (r_level + r_front) * p))
             r = _nearest(rser, np.maximum(1.0 / (TWO_PI * c * p) - r_front, 1.0))
             cc.append(c)
             rb.append(r)
@@ -335,14 +341,46 @@ def _with_low_side(req: DesignRequest, pairs, bias) -> Circuit:
     f_est = _f_low_estimates(params, req)
     order = np.argsort(-SIGMA_GRID, kind="stable")
     ok = f_est <= req.target.f_low_hz * (1.0 - F_LOW_MARGIN)
-    candidates = [int(i) for i in order if ok[i]] or [0]
-    chosen = None
-    for i in candidates[:6]:
-        chosen = _pick(req, pairs, bias, cc, rb, cg, c_out, i)
-        ab = as_built(chosen, per_stage=False)
-        if not math.isnan(ab.f_low_hz) and ab.f_low_hz <= req.target.f_low_hz:
-            return chosen
-    return _pick(req, pairs, bias, cc, rb, cg, c_out, candidates[0] if candidates else 0)
+    candidates = [int(i) for i in order if ok[i]] or [int(order[-1])]
+
+    def build(j: int) -> Circuit:
+        return _pick(req, pairs, bias, cc, rb, cg, c_out, candidates[j])
+
+    def good(j: int) -> bool:
+        circuit = build(j)
+        ab = as_built(circuit, per_stage=False)
+        if math.isnan(ab.f_low_hz) or ab.f_low_hz > req.target.f_low_hz:
+            return False
+        return peak_deficit_db(circuit, ab, req.target) <= corners.FLATNESS_SLACK_DB
+
+    return build(_first_good(good, len(candidates)))
+
+
+def _first_good(good, count: int) -> int:
+    """Smallest index j with ``good(j)``, assuming good is monotone (false..., true...):
+    galloping 0, 1, 3, 7, ... then bisection. Returns the last index when none is good.
+
+    Smaller sigma (larger capacitors) lowers f_low and moves the response maximum down
+    into the target band, so both conditions of ``good`` hold from some sigma downward.
+    """
+    if good(0):
+        return 0
+    bad, step, j = 0, 1, 1
+    while j < count and not good(j):
+        bad = j
+        step *= 2
+        j = bad + step
+    if j >= count:
+        if bad == count - 1 or not good(count - 1):
+            return count - 1
+        j = count - 1
+    while j - bad > 1:
+        mid = (bad + j) // 2
+        if good(mid):
+            j = mid
+        else:
+            bad = mid
+    return j
 
 
 def _pick(req, pairs, bias, cc, rb, cg, c_out, i) -> Circuit:

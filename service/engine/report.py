@@ -10,7 +10,7 @@ import math
 
 from service.engine import analysis, ideal
 from service.engine.design import Design
-from service.engine.model import INVERTING, NON_INVERTING, Circuit, Target
+from service.engine.model import NON_INVERTING, Circuit, Target
 
 CAUTIONS = (
     "gainchain is a design aid: build a prototype and measure it before relying on it.",
@@ -158,7 +158,3 @@ def design_block(design: Design) -> dict:
         "cautions": body["cautions"],
     }
 
-
-def is_inverting_overall(circuit: Circuit) -> bool:
-    """Sign of the overall midband gain by topology alone (odd number of inverting stages)."""
-    return circuit.topology == INVERTING and circuit.n_stages % 2 == 1

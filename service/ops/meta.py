@@ -13,6 +13,12 @@ bp = Blueprint("meta", __name__)
 DOCS_CSP = "default-src 'none'; style-src 'unsafe-inline'; frame-ancestors 'none'"
 
 
+class HealthSchema(Schema):
+    """Body of a 200 from /healthz (the health blueprint answers ``{"status": "ok"}``)."""
+
+    status = fields.String(required=True, metadata={"enum": ["ok"]})
+
+
 class ReadySchema(Schema):
     """Body of a 200 from /readyz."""
 

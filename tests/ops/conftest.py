@@ -2,8 +2,9 @@
 
 ``make_app(**overrides)`` builds ``service.create_app`` from an *empty* environment plus
 ``overrides`` (so the developer's shell variables never leak in) and adds three test-only
-routes: ``GET /_test/item/<item_id>``, ``POST /_test/echo`` reads the JSON body like the real views do, and
-``POST /_test/spin`` loops on the compute budget like an engine caller.
+routes: ``GET /_test/item/<item_id>`` echoes its parameter, ``POST /_test/echo`` reads the
+JSON body like the real views do, and ``POST /_test/spin`` loops on the compute budget like
+an engine caller.
 """
 
 from __future__ import annotations

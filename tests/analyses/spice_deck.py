@@ -1,0 +1,170 @@
+"""A test-local SPICE deck writer for the circuit model (independent of exporters/spice.py),
+and a runner for ngspice in batch mode.
+
+The deck follows the circuit model of issue 2 element by element: ideal source Vs behind the
+source impedance, every stage's parts, the bias divider with its bypass and optional
+follower, the output capacitor and load, and VCC as a voltage source. Each op-amp unit is a
+single-pole macro model (format brief sec. 5): ``E1`` of gain A0 into an RC pole at
+GBW/A0 and a unity buffer ``E2``, no input resistance and zero output resistance. The pole's
+resistor is marked ``noisy=0`` so ngspice's ``.noise`` counts only the circuit's resistors.
+Optional PSRR: an E source of gain ``10**(-psrr_db/20)`` from VCC in series with each
++ input.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import re
+import shutil
+import subprocess
+import tempfile
+
+import pytest
+
+from service.engine.model import INVERTING, Circuit
+
+NGSPICE = shutil.which("ngspice")
+
+
+def require_ngspice() -> str:
+    """The ngspice path; skip when absent, but fail under CI=true."""
+    if NGSPICE is None:
+        if os.environ.get("CI") == "true":
+            pytest.fail("ngspice is required under CI=true (apt-get install ngspice)")
+        pytest.skip("ngspice not installed: SPICE cross-checks skipped locally")
+    return NGSPICE
+
+
+def _n(x: float) -> str:
+    return f"{x:.12e}"
+
+
+def netlist(circuit: Circuit, *, signal_ac: float, supply_ac: float) -> tuple[list, str]:
+    """Element lines and the output spec (``v(out)`` or ``v(a,b)``)."""
+    amp = circuit.opamp
+    lines = [
+        ".subckt oa inp inn out params: a0=1e5 gbw=1e6",
+        "e1 n1 0 inp inn {a0}",
+        "rp n1 n2 1e3 noisy=0",
+        "cp n2 0 {a0/(6.283185307179586*gbw*1e3)}",
+        "e2 out 0 n2 0 1",
+        ".ends oa",
+    ]
+    params = f"params: a0={_n(amp.a0)} gbw={_n(amp.gbw_hz)}"
+    k_psrr = None if amp.psrr_db is None else 10 ** (-amp.psrr_db / 20)
+    units = 0
+
+    def opamp(plus, minus, out):
+        nonlocal units
+        units += 1
+        if k_psrr is not None:
+            lines.append(f"epsrr{units} pi{units} {plus} vcc 0 {_n(k_psrr)}")
+            plus = f"pi{units}"
+        lines.append(f"xu{units} {plus} {minus} {out} oa {params}")
+
+    bias = circuit.bias
+    if bias is None:
+        ref = "0"
+    else:
+        vcc_dc = circuit.supply.v_pos
+        lines.append(f"vcc vcc 0 dc {_n(vcc_dc)} ac {_n(supply_ac)}")
+        lines.append(f"rtop vcc vdiv {_n(bias.r_top_ohm)}")
+        lines.append(f"rbot vdiv 0 {_n(bias.r_bottom_ohm)}")
+        lines.append(f"cbyp vdiv 0 {_n(bias.c_bypass_f)}")
+        if bias.buffered:
+            ref = "vmid"
+            opamp("vdiv", "vmid", "vmid")
+        else:
+            ref = "vdiv"
+    lines.append(f"vs vs 0 dc 0 ac {_n(signal_ac)}")
+    lines.append(f"rsrc vs x1 {_n(circuit.source_impedance_ohm)}")
+    x = "x1"
+    for k, st in enumerate(circuit.stages, start=1):
+        o, n = f"o{k}", f"n{k}"
+        if circuit.topology == INVERTING:
+            m = x
+            if st.c_couple_f is not None:
+                m = f"m{k}"
+                lines.append(f"cc{k} {x} {m} {_n(st.c_couple_f)}")
+            lines.append(f"rin{k} {m} {n} {_n(st.r_in_ohm)}")
+            lines.append(f"rf{k} {o} {n} {_n(st.r_feedback_ohm)}")
+            opamp(ref, n, o)
+        else:
+            p = x
+            if st.c_couple_f is not None:
+                p = f"p{k}"
+                lines.append(f"cc{k} {x} {p} {_n(st.c_couple_f)}")
+            if st.r_bias_ohm is not None:
+                lines.append(f"rb{k} {p} {ref} {_n(st.r_bias_ohm)}")
+            lines.append(f"rf{k} {o} {n} {_n(st.r_feedback_ohm)}")
+            if st.c_gain_f is None:
+                lines.append(f"rg{k} {n} {ref} {_n(st.r_gain_ohm)}")
+            else:
+                lines.append(f"rg{k} {n} g{k} {_n(st.r_gain_ohm)}")
+                lines.append(f"cg{k} g{k} 0 {_n(st.c_gain_f)}")
+            opamp(p, n, o)
+        x = o
+    if circuit.c_out_f is None:
+        lines.append(f"rload {x} {ref} {_n(circuit.load_ohm)}")
+        out = f"v({x})" if ref == "0" else f"v({x},{ref})"
+    else:
+        lines.append(f"cout {x} out {_n(circuit.c_out_f)}")
+        lines.append(f"rload out 0 {_n(circuit.load_ohm)}")
+        out = "v(out)"
+    return lines, out
+
+
+def noise_deck(circuit: Circuit, f_start_hz: float, f_stop_hz: float, per_decade: int = 50,
+               temperature_c: float = 26.85) -> str:
+    lines, out = netlist(circuit, signal_ac=1.0, supply_ac=0.0)
+    return "\n".join(["gainchain noise cross-check", *lines, f".temp {temperature_c}",
+                      ".control",
+                      f"noise {out} vs dec {per_decade} {_n(f_start_hz)} {_n(f_stop_hz)}",
+                      "setplot noise2", "print onoise_total", "quit", ".endc", ".end", ""])
+
+
+def ripple_deck(circuit: Circuit, f_start_hz: float, f_stop_hz: float,
+                per_decade: int = 20) -> str:
+    lines, out = netlist(circuit, signal_ac=0.0, supply_ac=1.0)
+    vdb = "vdb" + out[1:]
+    return "\n".join(["gainchain supply ripple cross-check", *lines, ".control",
+                      f"ac dec {per_decade} {_n(f_start_hz)} {_n(f_stop_hz)}",
+                      f"print {vdb}", "quit", ".endc", ".end", ""])
+
+
+def run(deck: str, timeout_s: float = 120.0) -> str:
+    """Run ``ngspice -b`` on the deck in a fresh folder (argument list, no shell); stdout."""
+    with tempfile.TemporaryDirectory() as tmp:
+        path = os.path.join(tmp, "deck.cir")
+        with open(path, "w", encoding="utf-8") as fh:
+            fh.write(deck)
+        proc = subprocess.run([NGSPICE or "ngspice", "-b", "deck.cir"], cwd=tmp,
+                              capture_output=True, text=True, timeout=timeout_s, check=False)
+    out = proc.stdout + proc.stderr
+    if proc.returncode != 0 or re.search(r"\berror\b", out, re.IGNORECASE):
+        raise AssertionError(f"ngspice failed (rc={proc.returncode}):\n{out[-3000:]}")
+    return proc.stdout
+
+
+def parse_onoise_total(stdout: str) -> float:
+    m = re.search(r"onoise_total\s*=\s*([-+0-9.eE]+)", stdout)
+    assert m, f"no onoise_total in ngspice output:\n{stdout[-2000:]}"
+    return float(m.group(1))
+
+
+def parse_table(stdout: str, columns: int) -> list:
+    """Rows of a ``print`` table: lines that start with an integer index."""
+    rows = {}
+    for line in stdout.splitlines():
+        parts = line.split()
+        if len(parts) == columns + 1 and parts[0].isdigit():
+            try:
+                rows[int(parts[0])] = [float(v) for v in parts[1:]]
+            except ValueError:
+                continue
+    return [rows[i] for i in sorted(rows)]
+
+
+def finite(x) -> bool:
+    return x is not None and math.isfinite(x)
