@@ -78,7 +78,8 @@ def _options() -> tuple[str, dt.date | None]:
 
 
 def _from_circuit_body(body: dict):
-    from service.pipeline import load_circuit
+    """``{"name", "circuit"}``: validate, then analyse the circuit for the Design sheet."""
+    from service.pipeline import run_analysis
 
     errors: dict = {key: ["Unknown field."] for key in body if key not in _CIRCUIT_BODY_KEYS}
     name = body.get("name")
@@ -86,13 +87,10 @@ def _from_circuit_body(body: dict):
         errors["name"] = ["Not a valid string."]
     elif name is not None and len(name) > MAX_NAME_CHARS:
         errors["name"] = [f"Longer than maximum length {MAX_NAME_CHARS}."]
-    try:
-        circuit = load_circuit(body["circuit"])
-    except ValidationError as exc:
-        errors["circuit"] = exc.messages
     if errors:
         raise ValidationError(errors)
-    return circuit, name, None, {}
+    report = run_analysis({"circuit": body["circuit"]})  # validates the circuit (422)
+    return Circuit.from_dict(report.get("circuit") or body["circuit"]), name, report, {}
 
 
 def _from_design_request(body):

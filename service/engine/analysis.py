@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 import numpy as np
 
@@ -56,7 +57,7 @@ class AsBuilt:
             "f_high_hz": _none_if_nan(self.f_high_hz),
             "bandwidth_hz": self.bandwidth_hz,
             "inverting": self.inverting,
-            "stages": self.stages,
+            "stages": [dict(s) for s in self.stages],
         }
 
 
@@ -65,6 +66,17 @@ def _none_if_nan(x: float):
 
 
 def as_built(circuit: Circuit, *, per_stage: bool = True) -> AsBuilt:
+    """Cached :func:`compute_as_built` (circuits are frozen, so equal circuits give equal
+    figures; the synthesis loop asks for the same circuit more than once)."""
+    return _as_built_cached(circuit, per_stage)
+
+
+@lru_cache(maxsize=256)
+def _as_built_cached(circuit: Circuit, per_stage: bool) -> AsBuilt:
+    return compute_as_built(circuit, per_stage=per_stage)
+
+
+def compute_as_built(circuit: Circuit, *, per_stage: bool = True) -> AsBuilt:
     """Midband gain, corners and per-stage figures of the circuit (see module docstring).
 
     ``per_stage=False`` skips the per-stage corners (their entries are then empty), for

@@ -34,12 +34,9 @@ def test_ripple_matches_ngspice(name, psrr_db):
 
 
 def test_divider_closed_form_at_dc_limit():
-    # Hand calculation (common practice): a shared, unbypassed-at-low-frequency divider of
-    # equal resistors passes Vcc/2 to VMID; an inverting stage whose + input sits on VMID
-    # outputs VMID * (1 + Rf/Rin') at DC... but with c_couple the DC noise gain is 1, so
-    # each stage passes VMID with gain 1 at very low frequency: Vout -> Vcc/2 across a load
-    # returned to GND through c_out? c_out blocks DC, so use the no-c_out case: the load
-    # returns to REF and Vout = V(O_n) - V(REF) -> 0 at DC.
+    # Hand calculation (common practice): at DC the coupling capacitors block, so each
+    # inverting stage is a follower of its + input (REF) and every O_k sits at V(REF); with
+    # the load returned to REF, Vout = V(O_n) - V(REF) -> 0 as f -> 0.
     circuit = inv_single(buffered=False, c_out=False)
     h = supply_rejection.supply_gain(circuit, [1e-3])
     assert abs(h[0]) < 1e-3
