@@ -32,8 +32,8 @@ offsets, so a polarised part could see reverse voltage.
 from __future__ import annotations
 
 import hashlib
-import re
 import json
+import re
 import uuid
 from dataclasses import dataclass, field
 
@@ -101,7 +101,7 @@ class Pin:
 
 @dataclass(frozen=True)
 class Part:
-    """One placed part (one reference). ``value_f`` is the SI value for R and C."""
+    """One placed part (one reference). ``value_si`` is the value in ohm or farad (R, C)."""
 
     ref: str
     value: str

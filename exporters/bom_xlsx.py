@@ -31,7 +31,13 @@ from openpyxl.utils import get_column_letter
 from exporters.board import Board
 from exporters.bom import COLUMNS, bom_lines
 from exporters.names import cell_text
-from exporters.response import BandEdges, analysis_range, band_edges, response_table
+from exporters.response import (
+    BandEdges,
+    analysis_range,
+    band_edges,
+    edges_from_report,
+    response_table,
+)
 
 XLSX_MIME = "application/vnd.openxmlformats-officedocument.spreadsheetml.sheet"
 CAUTIONS = ("A design aid, not a certified design: prototype and measure before use; follow "
@@ -58,11 +64,9 @@ def bom_xlsx(board: Board, *, report: dict | None = None, date: dt.date | None =
 
 
 def _edges(board: Board, report: dict | None) -> BandEdges:
-    as_built = ((report or {}).get("performance") or {}).get("as_built") or {}
-    if as_built.get("f_high_hz") and as_built.get("gain"):
-        return BandEdges(gain=float(as_built["gain"]), f_low_hz=as_built.get("f_low_hz"),
-                         f_high_hz=float(as_built["f_high_hz"]))
-    return band_edges(board.circuit)
+    """The reported as-built band when there is a report, else the engine's."""
+    as_built = ((report or {}).get("performance") or {}).get("as_built")
+    return edges_from_report(as_built) or band_edges(board.circuit)
 
 
 def _put(ws, row: int, col: int, value):

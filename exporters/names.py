@@ -9,8 +9,9 @@ approved-parts file are labels, never content. Each format gets one function:
   with ``=``, ``+``, ``-``, ``@``, tab or carriage return may be run as a formula by a
   spreadsheet, so such cells get a leading apostrophe. Tabs and line breaks are removed first
   (KiCad's BOM export strips them too), so nothing hides behind them.
-* :func:`spice_title`: one line of ``[A-Za-z0-9 _.,:+=/-]`` (the format brief's set), which
-  cannot start a control line (``.``) or a continuation (``+``), nor carry a newline.
+* :func:`spice_title`: one line of ``[A-Za-z0-9 _.,:+=/-]`` (the format brief's set) that
+  starts with a letter or digit, so it cannot start a control line (``.``), a continuation
+  (``+``) or an ngspice warning (``=``), nor carry a newline.
 * :func:`sx`: the one S-expression string escaper (KiCad's lexer rules, format brief sec. 2).
 """
 
@@ -40,7 +41,9 @@ def cell_text(value: str | None) -> str:
 def spice_title(value: str | None, default: str = "gainchain design") -> str:
     """A single safe line for a SPICE title or ``*`` comment (at most 80 characters)."""
     text = re.sub(r"[^A-Za-z0-9 _.,:+=/-]", "_", value or "")[:80].strip()
-    text = text.lstrip(".+")  # never a dot command or continuation, even as line 1
+    # Start with a letter or digit: never a dot command or a continuation, and ngspice
+    # warns about (and rewrites) titles that start with "=" and other punctuation.
+    text = re.sub(r"^[^A-Za-z0-9]+", "", text)
     return text.strip() or default
 
 

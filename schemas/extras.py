@@ -112,7 +112,8 @@ class FigureStatsSchema(Schema):
 
 
 class McModelSchema(Schema):
-    name = fields.String(metadata={"description": "stage-product or chain-nodal"})
+    name = fields.String(metadata={"description": "stage-product (stiff REF) or "
+                                                  "chain-fraction-free (shared bias divider)"})
     description = fields.String()
     frequency_points = fields.Integer()
     grid_hz = fields.List(OutFloat())

@@ -25,7 +25,10 @@ from marshmallow.validate import Length
 
 OPENAPI_VERSION = "3.0.3"
 PROBLEM_MEDIA = "application/problem+json"
+# The lead's problem schema when it exists, else ours (below), which describes
+# service.errors.problem_body exactly.
 PROBLEM_SCHEMA = "schemas.problem:ProblemSchema"
+PROBLEM_SCHEMA_FALLBACK = "service.openapi:ProblemDocSchema"
 UNDOCUMENTED = frozenset({"/docs", "/static/<path:filename>"})
 _IGNORED_METHODS = frozenset({"HEAD", "OPTIONS"})
 
@@ -241,21 +244,39 @@ def _resolve(ref):
 _REF_RE = re.compile(r"^[a-z_][\w.]*:[A-Za-z_]\w*$")
 
 
-def _schema_entry(ref):
+def _schema_entry(ref, pending: list | None = None):
     """Resolve "module:NAME" strings anywhere in a schema description.
 
     A marshmallow schema class stays a class (the plugin turns it into a $ref); a tuple of
-    values (``enum``) becomes a sorted list; dicts and lists are walked.
+    values (``enum``) becomes a sorted list; dicts and lists are walked. A schema that does
+    not exist (yet) is described as any object and its name appended to ``pending``
+    (published as ``x-pending-schemas``); without a ``pending`` list it raises.
     """
     if isinstance(ref, str) and _REF_RE.match(ref):
-        ref = _resolve(ref)
+        if ref == PROBLEM_SCHEMA:
+            ref = _problem_ref()
+        try:
+            ref = _resolve(ref)
+        except (ImportError, AttributeError):
+            if pending is None:
+                raise
+            pending.append(ref)
+            return {"type": "object", "description": f"Schema not published yet ({ref})."}
         if isinstance(ref, tuple | frozenset | set):
             return sorted(ref)
     if isinstance(ref, dict):
-        return {k: _schema_entry(v) for k, v in ref.items()}
+        return {k: _schema_entry(v, pending) for k, v in ref.items()}
     if isinstance(ref, list | tuple):
-        return [_schema_entry(v) for v in ref]
+        return [_schema_entry(v, pending) for v in ref]
     return ref
+
+
+def _problem_ref() -> str:
+    try:
+        _resolve(PROBLEM_SCHEMA)
+        return PROBLEM_SCHEMA
+    except (ImportError, AttributeError):
+        return PROBLEM_SCHEMA_FALLBACK
 
 
 def _app_routes(app) -> dict[str, object]:
@@ -305,6 +326,20 @@ def _problem_response(status: int) -> dict:
             "content": {PROBLEM_MEDIA: {"schema": _schema_entry(PROBLEM_SCHEMA)}}}
 
 
+class ProblemDocSchema(Schema):
+    """RFC 9457 problem details as ``service.errors.problem_body`` writes them."""
+
+    class Meta:
+        unknown = "include"  # extension members (e.g. best_design) are allowed
+
+    type = fields.String(required=True, metadata={"format": "uri"})
+    title = fields.String(required=True)
+    status = fields.Integer(required=True)
+    detail = fields.String(required=True)
+    instance = fields.String()
+    errors = fields.Dict(metadata={"description": "Field path -> messages (validation)."})
+
+
 def build_spec(app) -> dict:
     """Build the OpenAPI document for the routes ``app`` serves (see :data:`OPERATIONS`)."""
     auth_enabled = bool(app.extensions.get("gainchain_ops", {}).get("auth_enabled"))
@@ -321,6 +356,7 @@ def build_spec(app) -> dict:
         "bearerAuth", {"type": "http", "scheme": "bearer",
                        "description": "API key (GAINCHAIN_API_KEYS / GAINCHAIN_API_KEYS_FILE)."})
     routes = _app_routes(app)
+    pending: list[str] = []
     by_path: dict[str, dict] = {}
     for op in OPERATIONS:
         rule = routes.get(op.path)
@@ -331,19 +367,20 @@ def build_spec(app) -> dict:
         if op.description:
             operation["description"] = op.description
         params = _path_parameters(rule, op)
-        params += [_schema_entry(q) for q in op.query]
+        params += [_schema_entry(q, pending) for q in op.query]
         if params:
             operation["parameters"] = params
         if op.request is not None:
             operation["requestBody"] = {
                 "required": True,
-                "content": {JSON: {"schema": _schema_entry(op.request)}},
+                "content": {JSON: {"schema": _schema_entry(op.request, pending)}},
             }
         responses = {}
         for status, media in op.responses.items():
             responses[str(status)] = {
                 "description": "Success.",
-                "content": {mt: {"schema": _schema_entry(ref)} for mt, ref in media.items()},
+                "content": {mt: {"schema": _schema_entry(ref, pending)}
+                            for mt, ref in media.items()},
             }
         errors = set(op.errors) | set(COMMON_ERRORS)
         if auth_enabled and not op.public:
@@ -355,7 +392,10 @@ def build_spec(app) -> dict:
         by_path.setdefault(op.path, {})[op.method.lower()] = operation
     for path, operations in by_path.items():
         spec.path(path=openapi_path(path), operations=operations)
-    return spec.to_dict()
+    doc = spec.to_dict()
+    if pending:
+        doc["info"]["x-pending-schemas"] = sorted(set(pending))
+    return doc
 
 
 def _operation_id(op: Operation) -> str:

@@ -10,8 +10,13 @@ from flask import Blueprint
 from marshmallow import ValidationError
 
 from service.engine.errors import EngineError
-from service.errors import (ApiProblem, engine_problem, get_json_body, problem_body,
-                            validation_problem)
+from service.errors import (
+    ApiProblem,
+    engine_problem,
+    get_json_body,
+    problem_body,
+    validation_problem,
+)
 from service.ops import budget
 from service.pipeline import run_design
 from service.views import json_response

@@ -281,8 +281,10 @@ def headroom(circuit: Circuit, ab: AsBuilt, input_peak_v: float,
     return Headroom(stages=rows, overall=overall, warnings=warnings)
 
 
-def status_of(ab: AsBuilt, target: Target) -> tuple[str, list]:
-    """``meets_target`` when f_low <= target, f_high >= target and the gain is in tolerance."""
+def status_of(ab: AsBuilt, target: Target, circuit: Circuit | None = None) -> tuple[str, list]:
+    """``meets_target`` when f_low <= target, f_high >= target and the gain is in
+    tolerance, and (given the circuit) every op-amp unit runs at a noise gain it is stable
+    at: a circuit that may oscillate does not meet any target (shortfall ``noise_gain``)."""
     shortfalls = []
     f_low = 0.0 if math.isnan(ab.f_low_hz) else ab.f_low_hz
     if f_low > target.f_low_hz:
@@ -293,18 +295,31 @@ def status_of(ab: AsBuilt, target: Target) -> tuple[str, list]:
     if abs(ab.gain_db - target.gain_db) > target.gain_tolerance_db:
         shortfalls.append({"quantity": "gain_db", "target": target.gain_db,
                            "achieved": ab.gain_db})
+    if circuit is not None:
+        lowest = min(unit_noise_gains(circuit))
+        if lowest < circuit.opamp.min_stable_gain:
+            shortfalls.append({"quantity": "noise_gain", "target": circuit.opamp.min_stable_gain,
+                               "achieved": lowest})
     return ("meets_target" if not shortfalls else "target_not_met"), shortfalls
+
+
+def unit_noise_gains(circuit: Circuit) -> list[float]:
+    """Midband noise gain of every op-amp unit: ``1 + Rf/Rg`` (non-inverting), ``1 + Rf/Rin``
+    (inverting), 1 for the VMID follower."""
+    gains = []
+    for st in circuit.stages:
+        other = st.r_in_ohm if circuit.topology == INVERTING else st.r_gain_ohm
+        gains.append(1.0 + st.r_feedback_ohm / other)
+    if circuit.bias is not None and circuit.bias.buffered:
+        gains.append(1.0)
+    return gains
 
 
 def circuit_warnings(circuit: Circuit) -> list:
     """Warnings that follow from the parts alone (stability, electrolytic sizes)."""
     out = []
     op = circuit.opamp
-    for k, st in enumerate(circuit.stages):
-        if circuit.topology == INVERTING:
-            ng = 1.0 + st.r_feedback_ohm / st.r_in_ohm
-        else:
-            ng = 1.0 + st.r_feedback_ohm / st.r_gain_ohm
+    for k, ng in enumerate(unit_noise_gains(circuit)[:circuit.n_stages]):
         if ng < op.min_stable_gain:
             out.append(("below_min_stable_gain",
                         f"Stage {k + 1} runs at a noise gain of {ng:.3g}, below the op-amp's "

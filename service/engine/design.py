@@ -30,7 +30,13 @@ from functools import lru_cache
 import numpy as np
 
 from service.engine import chain, corners, eseries, ideal
-from service.engine.analysis import AsBuilt, as_built, flat_outside_band, peak_deficit_db
+from service.engine.analysis import (
+    AsBuilt,
+    as_built,
+    flat_outside_band,
+    peak_deficit_db,
+    status_of,
+)
 from service.engine.errors import EngineError
 from service.engine.model import (
     DUAL,
@@ -460,6 +466,12 @@ def stage_counts_to_try(req: DesignRequest) -> list[int]:
     return out
 
 
+def _stable(req: DesignRequest, n: int) -> bool:
+    """True when n identical stages run at a noise gain the op-amp is stable at."""
+    g = req.target.gain ** (1.0 / n)
+    return ideal.noise_gain(g, req.topology) >= req.opamp.min_stable_gain
+
+
 def best_reach(req: DesignRequest) -> int:
     """Stage count with the highest ideal f_high among the stable ones (1 if none)."""
     best, best_f = 1, -1.0
@@ -478,8 +490,6 @@ def design(req: DesignRequest) -> Design:
     :raise EngineError: the supply span does not suit the op-amp, or DC coupling was asked
         for on a single supply.
     """
-    from service.engine.analysis import status_of
-
     check_request(req)
     if req.stages is not None:
         syn = synthesize(req, req.stages)
@@ -488,19 +498,21 @@ def design(req: DesignRequest) -> Design:
         syn = None
         for n in stage_counts_to_try(req):
             tried[n] = synthesize(req, n)
-            if status_of(tried[n].as_built, req.target)[0] == "meets_target":
+            if status_of(tried[n].as_built, req.target, tried[n].circuit)[0] == "meets_target":
                 syn = tried[n]
                 break
         if syn is None:
             reach = best_reach(req)
             for n in (reach - 1, reach, reach + 1):
-                if 1 <= n <= ideal.MAX_STAGES and n not in tried:
+                if 1 <= n <= ideal.MAX_STAGES and n not in tried and _stable(req, n):
                     tried[n] = synthesize(req, n)
+            if not tried:  # no stage count is stable: best_reach's pick, flagged by a warning
+                tried[reach] = synthesize(req, reach)
             syn = best_by_f_high(tried)
     n = syn.circuit.n_stages
     ic = ideal.ideal_cascade(req.target.gain, req.target.f_low_hz, req.opamp.gbw_hz, n,
                              req.topology)
-    status, shortfalls = status_of(syn.as_built, req.target)
+    status, shortfalls = status_of(syn.as_built, req.target, syn.circuit)
     return Design(request=req, synthesis=syn, ideal=ic, status=status, shortfalls=shortfalls)
 
 
@@ -515,6 +527,6 @@ def best_design(req: DesignRequest) -> Design:
     the highest as-built f_high, searched around the ideal optimum."""
     reach = best_reach(req)
     tried = {n: synthesize(req, n) for n in (reach - 1, reach, reach + 1)
-             if 1 <= n <= ideal.MAX_STAGES}
+             if 1 <= n <= ideal.MAX_STAGES and _stable(req, n)} or {reach: synthesize(req, reach)}
     syn = best_by_f_high(tried)
     return design(replace(req, stages=syn.circuit.n_stages, strict=False))

@@ -75,6 +75,9 @@ def ideal_cascade(gain: float, f_low_hz: float, gbw_hz: float, n: int,
     f_high = stage_f_high * k
     stage_f_low = f_low_hz * k
     single = gbw_hz / noise_gain(gain, topology)
+    # No band at all when the stage's low corner reaches its high corner: no fraction.
+    stage_band = stage_f_high - stage_f_low
+    fraction = (f_high - f_low_hz) / stage_band if stage_band > 0 else math.nan
     return IdealCascade(
         stage_count=n,
         stage_gain=g,
@@ -84,7 +87,7 @@ def ideal_cascade(gain: float, f_low_hz: float, gbw_hz: float, n: int,
         f_low_hz=f_low_hz,
         bandwidth_hz=f_high - f_low_hz,
         single_stage_f_high_hz=single,
-        bandwidth_fraction=(f_high - f_low_hz) / (stage_f_high - stage_f_low),
+        bandwidth_fraction=fraction,
     )
 
 

@@ -80,7 +80,7 @@ def analysis_block(circuit: Circuit, *, target: Target | None, input_peak_v: flo
         "cautions": list(CAUTIONS),
     }
     if target is not None:
-        status, shortfalls = analysis.status_of(ab, target)
+        status, shortfalls = analysis.status_of(ab, target, circuit)
         out["status"] = status
         out["shortfalls"] = shortfalls
         if status != "meets_target":

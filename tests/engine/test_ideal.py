@@ -150,3 +150,11 @@ def test_required_gbw_reaches_target_exactly(topology):
     assert ideal.ideal_cascade(gain, 1.0, gbw, n, topology).f_high_hz == pytest.approx(f_high)
     for m in range(1, ideal.MAX_STAGES + 1):  # no other n does with less
         assert ideal.ideal_cascade(gain, 1.0, gbw, m, topology).f_high_hz <= f_high * (1 + 1e-12)
+
+
+def test_no_band_gives_no_fraction():
+    """One stage whose high corner equals the low target (1 MHz / 10**4 = 100 Hz): no band,
+    so no bandwidth fraction (this once raised ZeroDivisionError, a 500 in the API)."""
+    ic = ideal.ideal_cascade(1e4, 100.0, 1e6, 1, NON_INVERTING)
+    assert ic.stage_f_high_hz == pytest.approx(ic.stage_f_low_hz)
+    assert math.isnan(ic.bandwidth_fraction)

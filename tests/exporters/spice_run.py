@@ -2,7 +2,8 @@
 
 Used by the tests and by ``report_ngspice.py``. ngspice runs in a fresh temporary folder with
 an argument list (no shell) and a timeout (format brief sec. 5). Exit status 0 proves little,
-so the caller checks the row count, and any "error" in the output fails here.
+so the caller checks the row count, and any "error" or "warning" in the output fails
+here (a missing value only warns, format brief sec. 5).
 """
 
 from __future__ import annotations
@@ -38,7 +39,7 @@ def run_deck(deck: str, timeout_s: float = 120.0) -> tuple[str, str]:
                               text=True, timeout=timeout_s, check=False)
         listing = sorted(os.listdir(tmp))
     out = proc.stdout + proc.stderr
-    if proc.returncode != 0 or "error" in out.lower():
+    if proc.returncode != 0 or "error" in out.lower() or "warning" in out.lower():
         raise AssertionError(f"ngspice failed (rc={proc.returncode}):\n{out[-3000:]}")
     return proc.stdout, ",".join(listing)
 

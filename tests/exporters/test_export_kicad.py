@@ -11,6 +11,7 @@ in the format brief (eda-formats.md sec. 1), spelled out again here.
 from __future__ import annotations
 
 import dataclasses
+import functools
 import io
 import re
 import xml.etree.ElementTree as ET
@@ -160,14 +161,21 @@ def check_capacitors(parsed, deck: str, circuit):
     return polarised
 
 
+@functools.cache
+def _net_parsed(key: str):
+    """kinparse is slow (pyparsing): parse each circuit's .net once per session."""
+    text = kicad_net(build_board(CIRCUITS[key](), name=key))
+    return text, parse_net(text)
+
+
 @pytest.mark.parametrize("key", sorted(CIRCUITS))
 def test_net_file_parses_and_matches_circuit(key):
     circuit = CIRCUITS[key]()
     board = build_board(circuit, name=key)
-    text = kicad_net(board)
+    text, parsed = _net_parsed(key)
+    assert text == kicad_net(board)
     assert re.match(r"[ ]*\(export[ ]+", text.splitlines()[0])  # KiCad's format sniffing
     assert sexpdata.loads(text)[0] == sexpdata.Symbol("export")
-    parsed = parse_net(text)
     check_connectivity(circuit, parsed, spice_deck(board))
 
 
@@ -185,7 +193,7 @@ def test_electrolytic_polarity_and_rating_from_ngspice_dc(key, capsys):
     circuit = CIRCUITS[key]()
     board = build_board(circuit, name=key)
     deck = spice_deck(board)
-    n_net = check_capacitors(parse_net(kicad_net(board)), deck, circuit)
+    n_net = check_capacitors(_net_parsed(key)[1], deck, circuit)
     n_xml = check_capacitors(parse_xml(kicad_xml(board), capsys), deck, circuit)
     assert n_net == n_xml
     if circuit.supply.kind == "single":  # bulk, bypass and gain-leg parts are polarised

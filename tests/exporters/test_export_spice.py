@@ -105,7 +105,8 @@ def test_deck_structure_rules():
     """Brief sec. 5: one AC source, RLOAD at OUT, exponent numbers, .print of v(out)."""
     deck = spice_deck(build_board(single_ni(3, buffered=True)))
     statements = [ln for ln in deck.splitlines()[1:] if not ln.startswith("*")]
-    assert [ln for ln in statements if " AC " in ln.upper() and not ln.startswith(".")] == ["VS vs 0 DC 0 AC 1"]
+    sources = [ln for ln in statements if " AC " in ln.upper() and not ln.startswith(".")]
+    assert sources == ["VS vs 0 DC 0 AC 1"]
     assert "RLOAD out 0 1e+04" in statements
     assert statements[-1] == ".end"
     assert ".print ac vdb(out) vp(out)" in statements

@@ -57,14 +57,16 @@ def server(tmp_path_factory):
                 "GAINCHAIN_API_KEYS": "serve-test-key", "GAINCHAIN_MAX_BODY_BYTES": "4096",
                 "PROMETHEUS_MULTIPROC_DIR": str(metrics_dir), "OMP_NUM_THREADS": "1",
                 "GAINCHAIN_LOG_LEVEL": "WARNING"})
+    log_path = tmp_path_factory.mktemp("gunicorn") / "stderr.log"
+    log_file = open(log_path, "wb")  # a file, not a pipe: a full pipe would block gunicorn
     proc = subprocess.Popen(_container_argv(), cwd=ROOT, env=env, stdout=subprocess.DEVNULL,
-                            stderr=subprocess.PIPE, start_new_session=True)
+                            stderr=log_file, start_new_session=True)
     polls = 0
     deadline = time.monotonic() + START_TIMEOUT_S
     try:
         while True:
             if proc.poll() is not None:
-                pytest.fail("gunicorn exited: " + proc.stderr.read().decode()[-2000:])
+                pytest.fail("gunicorn exited: " + log_path.read_text(errors="replace")[-2000:])
             try:
                 polls += 1
                 status, _, _ = _get(port, "/healthz", timeout=1.0)
@@ -83,6 +85,7 @@ def server(tmp_path_factory):
         except subprocess.TimeoutExpired:
             proc.kill()
             proc.wait(timeout=10)
+        log_file.close()
 
 
 def test_healthz_200_with_security_headers(server):

@@ -52,19 +52,39 @@ def test_every_route_but_docs_is_documented(plain_app, spec):
 
 
 def test_every_error_status_is_problem_json_with_the_problem_schema(spec):
-    count = 0
+    refs = set()
     for item in spec["paths"].values():
         for op in item.values():
             for status, resp in op["responses"].items():
                 if int(status) >= 400:
                     content = resp["content"]
                     assert list(content) == [PROBLEM_MEDIA]
-                    assert content[PROBLEM_MEDIA]["schema"] == {
-                        "$ref": "#/components/schemas/Problem"}
-                    count += 1
-    assert count > 0
-    problem = spec["components"]["schemas"]["Problem"]
+                    refs.add(content[PROBLEM_MEDIA]["schema"]["$ref"])
+    assert len(refs) == 1  # one problem schema for every error
+    problem = spec["components"]["schemas"][refs.pop().rsplit("/", 1)[-1]]
     assert {"type", "title", "status", "detail"} <= set(problem["properties"])
+    assert set(problem["required"]) >= {"type", "title", "status", "detail"}
+
+
+def test_problem_schema_accepts_real_problem_bodies(plain_app, spec):
+    # The documented problem schema validates bodies the app really sends (jsonschema's
+    # OpenAPI 3.0 validator from openapi-schema-validator, an independent implementation).
+    from openapi_schema_validator import OAS30Validator
+
+    client = plain_app.test_client()
+    bodies = [client.get("/nope").get_json(),
+              client.post("/v1/designs", data=b"{", content_type="application/json").get_json(),
+              client.post("/v1/designs", json={"target": 1}).get_json()]
+    ref = spec["paths"]["/v1/designs"]["post"]["responses"]["422"]["content"][PROBLEM_MEDIA]
+    schema = dict(ref["schema"], components=spec["components"])
+    for body in bodies:
+        OAS30Validator(schema).validate(body)
+
+
+def test_no_schema_is_pending(spec):
+    pending = spec["info"].get("x-pending-schemas")
+    if pending:
+        pytest.skip(f"response schemas not published yet, documented as any object: {pending}")
 
 
 def test_json_bodies_declare_their_errors(spec):
@@ -103,3 +123,14 @@ def test_docs_page_is_self_contained(plain_app, spec):
     assert not re.search(r"""(?:src|href)\s*=\s*["']?(?:https?:)?//""", html)
     for path in spec["paths"]:
         assert path in html
+
+
+def test_every_export_kind_and_its_media_type_is_documented(spec):
+    from exporters.formats import KINDS, MIME_TYPES
+
+    op = spec["paths"]["/v1/exports/{kind}"]["post"]
+    kind_param = [p for p in op["parameters"] if p["name"] == "kind"][0]
+    assert sorted(kind_param["schema"]["enum"]) == sorted(KINDS)
+    documented = set(op["responses"]["200"]["content"])
+    for mime in MIME_TYPES.values():
+        assert mime.split(";")[0].strip() in documented, mime

@@ -28,13 +28,9 @@ CHECKS = [not_a_server_error, status_code_conformance, content_type_conformance,
 pytestmark = pytest.mark.slow
 
 
-@pytest.fixture(scope="module")
-def api_schema():
-    app = make_app(test_routes=False)
-    return schemathesis.openapi.from_wsgi("/openapi.json", app)
-
-
-schema = schemathesis.pytest.from_fixture("api_schema")
+# Loaded at import: schemathesis.pytest.from_fixture() fails under pytest 9.2
+# ("'Function' object has no attribute '_nodeid'"), the eager loader works.
+schema = schemathesis.openapi.from_wsgi("/openapi.json", make_app(test_routes=False))
 
 
 @schema.parametrize()

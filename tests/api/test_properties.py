@@ -1,0 +1,109 @@
+"""Property tests (hypothesis) over random valid design requests: never a 5xx, every reply
+strict JSON (RFC 8259: no NaN/Infinity), finite as-built figures when the target is met,
+and a status that agrees with the figures and the shortfalls (issue 2's definition:
+meets = f_low <= target, f_high >= target, |gain_db - target| <= tolerance).
+"""
+
+from __future__ import annotations
+
+import math
+
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from service.engine.catalog import BUILTIN_OPAMPS
+
+
+@pytest.fixture(scope="module")
+def module_client():
+    from service import create_app
+
+    return create_app({"TESTING": True}).test_client()
+
+
+@st.composite
+def design_requests(draw):
+    op = draw(st.sampled_from(BUILTIN_OPAMPS))
+    kind = draw(st.sampled_from(["single", "dual"]))
+    span = draw(st.floats(op.supply_min_v, op.supply_max_v))
+    supply = ({"kind": "single", "v_pos": span} if kind == "single"
+              else {"kind": "dual", "v_pos": span / 2, "v_neg": -span / 2})
+    log_f_low = draw(st.floats(0.0, 4.0))
+    f_low = 10.0 ** log_f_low
+    f_high = 10.0 ** draw(st.floats(log_f_low + math.log10(5.0), 7.0))
+    if kind == "dual" and draw(st.booleans()):
+        f_low = 0  # DC coupled
+    gain_db = draw(st.floats(1.0, 100.0))
+    return {
+        "target": {"gain_db": gain_db, "f_low_hz": f_low, "f_high_hz": f_high},
+        "supply": supply,
+        "opamp": op.id,
+        "topology": draw(st.sampled_from(["non_inverting", "inverting"])),
+        "signal": {"input_peak_v": draw(st.sampled_from([1e-4, 1e-3, 1e-2])),
+                   # 0 ohm is left out here: it has its own strict xfail test below.
+                   "source_impedance_ohm": draw(st.sampled_from([10, 50, 600])),
+                   "load_ohm": draw(st.sampled_from([2e3, 1e4, 1e5]))},
+    }
+
+
+def _finite(x):
+    return isinstance(x, int | float) and not isinstance(x, bool) and math.isfinite(x)
+
+
+@settings(max_examples=40, deadline=None, derandomize=True,
+          suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
+@given(req=design_requests())
+def test_random_valid_targets(module_client, strict_json, req):
+    resp = module_client.post("/v1/designs", json=req)
+    assert resp.status_code < 500, (req, resp.data[:600])
+    assert resp.status_code == 200, resp.data[:600]
+    body = strict_json(resp.data)  # strict JSON, every reply
+    ab = body["performance"]["as_built"]
+    t = body["target"]
+    if body["status"] == "meets_target":
+        for key in ("gain", "gain_db", "f_high_hz", "bandwidth_hz"):
+            assert _finite(ab[key]), (key, ab[key])
+        assert _finite(ab["f_low_hz"]) or (ab["f_low_hz"] is None and t["f_low_hz"] == 0)
+        for stage in ab["stages"]:
+            assert _finite(stage["gain"]) and _finite(stage["f_high_hz"])
+    # Status consistent with the figures (issue 2's definition), shortfalls included.
+    expected = []
+    f_low = 0.0 if ab["f_low_hz"] is None else ab["f_low_hz"]
+    if f_low > t["f_low_hz"]:
+        expected.append("f_low_hz")
+    if ab["f_high_hz"] is None or not ab["f_high_hz"] >= t["f_high_hz"]:
+        expected.append("f_high_hz")
+    if ab["gain_db"] is None or abs(ab["gain_db"] - t["gain_db"]) > t["gain_tolerance_db"]:
+        expected.append("gain_db")
+    # A circuit that may oscillate meets no target: every unit's noise gain (1 + Rf/Rg or
+    # 1 + Rf/Rin, 1 for a VMID follower) must reach the op-amp's min_stable_gain.
+    circuit = body["circuit"]
+    other = "r_in_ohm" if circuit["topology"] == "inverting" else "r_gain_ohm"
+    noise_gains = [1.0 + st["r_feedback_ohm"] / st[other] for st in circuit["stages"]]
+    if circuit["bias"] is not None and circuit["bias"]["buffered"]:
+        noise_gains.append(1.0)
+    min_stable = circuit["opamp"]["min_stable_gain"]
+    if min(noise_gains) < min_stable:
+        expected.append("noise_gain")
+    assert [s["quantity"] for s in body["shortfalls"]] == expected
+    assert body["status"] == ("meets_target" if not expected else "target_not_met")
+    for s in body["shortfalls"]:
+        if s["quantity"] == "noise_gain":
+            assert s["target"] == min_stable and s["achieved"] == min(noise_gains)
+            continue
+        assert s["target"] == t[s["quantity"]]
+        assert s["achieved"] == (f_low if s["quantity"] == "f_low_hz" else ab[s["quantity"]])
+    assert body["stage_count"] == len(body["circuit"]["stages"]) == len(ab["stages"])
+
+
+@pytest.mark.xfail(strict=True, reason="bug: signal.source_impedance_ohm = 0 (allowed by the "
+                   "schema) makes the noise block's MNA stamp 1/0 -> 500 "
+                   "(service/engine/mna.py stamp); reported, owned by the analyses work")
+def test_zero_source_impedance_is_not_a_500(module_client, strict_json):
+    req = {"target": {"gain_db": 60, "f_low_hz": 2000, "f_high_hz": 200000},
+           "supply": {"kind": "single", "v_pos": 5}, "opamp": "gc-cmos-rr-10m",
+           "signal": {"input_peak_v": 0.001, "source_impedance_ohm": 0, "load_ohm": 10000}}
+    resp = module_client.post("/v1/designs", json=req)
+    assert resp.status_code == 200, resp.data[:300]
+    assert strict_json(resp.data)["status"] == "meets_target"

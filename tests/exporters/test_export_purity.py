@@ -1,0 +1,32 @@
+"""Exporters are pure functions: no Flask, no GPL reader, no I/O (issue 3, Endpoints)."""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+
+import pytest
+import spice_run
+
+ROOT = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+
+
+def test_exporters_import_without_flask_or_test_readers():
+    code = ("import sys, exporters.formats; "
+            "bad = {'flask', 'werkzeug', 'kicad_netlist_reader', 'kinparse'} & set(sys.modules); "
+            "print(sorted(bad))")
+    out = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True,
+                         text=True, timeout=60, check=True).stdout.strip()
+    assert out == "[]"
+
+
+def test_missing_ngspice_skips_locally_but_fails_under_ci(monkeypatch):
+    """Issue 3: without ngspice the SPICE checks skip, except under CI=true where they fail."""
+    monkeypatch.setattr(spice_run, "NGSPICE", None)
+    monkeypatch.delenv("CI", raising=False)
+    with pytest.raises(pytest.skip.Exception):
+        spice_run.require_ngspice()
+    monkeypatch.setenv("CI", "true")
+    with pytest.raises(pytest.fail.Exception):
+        spice_run.require_ngspice()
