@@ -304,12 +304,16 @@ def status_of(ab: AsBuilt, target: Target, circuit: Circuit | None = None) -> tu
 
 
 def unit_noise_gains(circuit: Circuit) -> list[float]:
-    """Midband noise gain of every op-amp unit: ``1 + Rf/Rg`` (non-inverting), ``1 + Rf/Rin``
-    (inverting), 1 for the VMID follower."""
+    """Midband noise gain ``1/beta`` of every op-amp unit: ``1 + Rf/Rg`` (non-inverting),
+    ``1 + Rf/(Rin + Rs)`` (inverting; the source impedance counts in front of stage 1
+    only), 1 for the VMID follower."""
     gains = []
-    for st in circuit.stages:
-        other = st.r_in_ohm if circuit.topology == INVERTING else st.r_gain_ohm
-        gains.append(1.0 + st.r_feedback_ohm / other)
+    for k, st in enumerate(circuit.stages):
+        if circuit.topology == INVERTING:
+            front = circuit.source_impedance_ohm if k == 0 else 0.0
+            gains.append(1.0 + st.r_feedback_ohm / (st.r_in_ohm + front))
+        else:
+            gains.append(1.0 + st.r_feedback_ohm / st.r_gain_ohm)
     if circuit.bias is not None and circuit.bias.buffered:
         gains.append(1.0)
     return gains

@@ -92,14 +92,17 @@ def _nearest(series: str, x: np.ndarray) -> np.ndarray:
 
 
 def gain_candidates(series: str, gain: float, topology: str, impedance_ohm: float,
-                    r_extra_ohm: float = 0.0, spread: float = 0.06):
+                    r_extra_ohm: float = 0.0, spread: float = 0.06,
+                    min_noise_gain: float = 1.0):
     """E-series feedback pairs whose stage gain lies within ``spread`` of ``gain``.
 
     Non-inverting: ``g = 1 + Rf/Rg``; inverting: ``g = Rf / (Rin + r_extra)`` where
     ``r_extra`` is the source impedance in front of stage 1. The impedance-level resistor
     (Rf, or Rin) ranges over one decade centred on ``impedance_ohm``. Returns arrays
     ``(gain, r_feedback_ohm, r_other_ohm)`` sorted by the distance of the gain from
-    ``gain``, then by the level resistor's distance from ``impedance_ohm``.
+    ``gain``, then by the level resistor's distance from ``impedance_ohm``. Pairs whose
+    noise gain (``g`` non-inverting, ``1 + Rf/(Rin + r_extra)`` inverting) falls below
+    ``min_noise_gain`` are left out unless no pair reaches it.
     """
     level = eseries.values_between(series, impedance_ohm / math.sqrt(10),
                                    impedance_ohm * math.sqrt(10))
@@ -114,8 +117,13 @@ def gain_candidates(series: str, gain: float, topology: str, impedance_ohm: floa
         cands = np.concatenate([_round_down_vec(series, other), _round_up(series, other)])
         rf, r2 = cands, level2
         g = rf / (r2 + r_extra_ohm)
+    noise = g if topology == NON_INVERTING else 1.0 + g
     err = np.abs(np.log(g / gain))
     closeness = np.abs(np.log(level2 / impedance_ohm))
+    stable = noise >= min_noise_gain
+    if stable.any():
+        g, rf, r2 = g[stable], rf[stable], r2[stable]
+        err, closeness = err[stable], closeness[stable]
     order = np.lexsort((closeness, np.round(err, 12)))
     keep = order[err[order] <= max(spread, err[order[0]])]
     return g[keep], rf[keep], r2[keep]
@@ -123,7 +131,8 @@ def gain_candidates(series: str, gain: float, topology: str, impedance_ohm: floa
 
 def choose_pairs(series: str, gain: float, n: int, topology: str, impedance_ohm: float,
                  r_source_ohm: float, correction: float = 1.0,
-                 previous: list | None = None) -> list[tuple[float, float]]:
+                 previous: list | None = None,
+                 min_noise_gain: float = 1.0) -> list[tuple[float, float]]:
     """Feedback pairs for n stages whose gain *product* is nearest ``gain / correction``.
 
     Stages 1..n-2 take the pair nearest ``g = gain**(1/n)``; the last two stages search all
@@ -138,16 +147,20 @@ def choose_pairs(series: str, gain: float, n: int, topology: str, impedance_ohm:
         if previous is not None:
             pairs.append(previous[k])
             continue
-        _, rf, r2 = gain_candidates(series, g, topology, impedance_ohm, extra[k])
+        _, rf, r2 = gain_candidates(series, g, topology, impedance_ohm, extra[k],
+                                    min_noise_gain=min_noise_gain)
         pairs.append((float(rf[0]), float(r2[0])))
     done = math.prod(_pair_gain(p, topology, r_source_ohm, k) for k, p in enumerate(pairs))
     need = gain / correction / done
     if n == 1:
-        ga, rfa, r2a = gain_candidates(series, need, topology, impedance_ohm, extra[0])
+        ga, rfa, r2a = gain_candidates(series, need, topology, impedance_ohm, extra[0],
+                                         min_noise_gain=min_noise_gain)
         return [(float(rfa[0]), float(r2a[0]))]
     rest = need ** 0.5
-    ga, rfa, r2a = gain_candidates(series, rest, topology, impedance_ohm, extra[n - 2])
-    gb, rfb, r2b = gain_candidates(series, rest, topology, impedance_ohm, extra[n - 1])
+    ga, rfa, r2a = gain_candidates(series, rest, topology, impedance_ohm, extra[n - 2],
+                                     min_noise_gain=min_noise_gain)
+    gb, rfb, r2b = gain_candidates(series, rest, topology, impedance_ohm, extra[n - 1],
+                                     min_noise_gain=min_noise_gain)
     ga, rfa, r2a, gb, rfb, r2b = (a[:40] for a in (ga, rfa, r2a, gb, rfb, r2b))
     err = np.abs(np.log(ga[:, None] * gb[None, :] / need))
     i, j = np.unravel_index(np.argmin(np.round(err, 12)), err.shape)
@@ -191,8 +204,16 @@ def synthesize(req: DesignRequest, n: int) -> Synthesis:
     target = req.target
     rs = req.signal.source_impedance_ohm
     ac = target.f_low_hz > 0
-    pairs = choose_pairs(comp.resistor_series, target.gain, n, topo, comp.impedance_ohm, rs)
+    stable = req.opamp.min_stable_gain
+    pairs = choose_pairs(comp.resistor_series, target.gain, n, topo, comp.impedance_ohm, rs,
+                         min_noise_gain=stable)
     bias, bias_reason = _initial_bias(req, n)
+    # One cheap solve predicts the losses (source divider, finite A0) before any capacitor
+    # is sized, so the loop below usually settles in one pass.
+    ideal_product = math.prod(_pair_gain(p, topo, rs, k) for k, p in enumerate(pairs))
+    pairs = choose_pairs(comp.resistor_series, target.gain, n, topo, comp.impedance_ohm, rs,
+                         correction=_midband_estimate(req, pairs) / ideal_product,
+                         min_noise_gain=stable)
     circuit = None
     result = None
     for _ in range(GAIN_PASSES):
@@ -202,13 +223,49 @@ def synthesize(req: DesignRequest, n: int) -> Synthesis:
         if abs(math.log(target.gain / result.gain)) < 1e-5:
             break
         new = choose_pairs(comp.resistor_series, target.gain, n, topo, comp.impedance_ohm, rs,
-                           correction=result.gain / ideal_product, previous=pairs)
+                           correction=result.gain / ideal_product, previous=pairs,
+                           min_noise_gain=stable)
         if new == pairs:
             break
         pairs = new
     if bias is not None and not bias.buffered:
         circuit, result, bias_reason = _settle_bias(req, pairs, circuit, result, bias_reason)
     return Synthesis(circuit=circuit, as_built=as_built(circuit), bias_reason=bias_reason)
+
+
+#: Stand-in for "short at midband" when predicting the midband gain before sizing.
+_SHORT_F = 1.0
+
+
+def _midband_estimate(req: DesignRequest, pairs) -> float:
+    """|Vout/Vs| at the target's band centre with every capacitor a near-short and the
+    bias resistors at their starting values: the midband gain before the low side exists."""
+    t = req.target
+    f_mid = math.sqrt(t.f_low_hz * t.f_high_hz) if t.f_low_hz > 0 else t.f_high_hz / 100.0
+    n = len(pairs)
+    ac = t.f_low_hz > 0
+    single = req.supply.kind != DUAL
+    comp = req.components
+    rb0 = float(_nearest(comp.resistor_series, comp.impedance_ohm))
+    rs = req.signal.source_impedance_ohm
+    rb_first = float(_nearest(comp.resistor_series,
+                              max(comp.impedance_ohm, SOURCE_LOAD_RATIO * rs)))
+    non_inv = req.topology == NON_INVERTING
+    params = chain.ChainParams(
+        inverting=not non_inv,
+        source_impedance_ohm=rs,
+        load_ohm=req.signal.load_ohm,
+        a0=req.opamp.a0,
+        gbw_hz=[req.opamp.gbw_hz] * n,
+        c_couple_f=[_SHORT_F if ac else None] * n,
+        r_bias_ohm=[(rb_first if k == 0 else rb0) if (ac and non_inv) else None for k in range(n)],
+        r_feedback_ohm=[rf for rf, _ in pairs],
+        r_gain_ohm=[r2 for _, r2 in pairs] if non_inv else [None] * n,
+        c_gain_f=[_SHORT_F if ac else None] * n if non_inv else [None] * n,
+        r_in_ohm=[r2 for _, r2 in pairs] if not non_inv else [None] * n,
+        c_out_f=_SHORT_F if single else None,
+    )
+    return float(np.abs(chain.solve_params(params, np.array([f_mid])).vout[0]))
 
 
 def _pair_gain(pair, topology, rs, k) -> float:

@@ -24,7 +24,9 @@ from service.engine.supply_rejection import supply_rejection_block
 
 
 def extra_blocks(circuit: Circuit, *, target: Target | None, input_peak_v: float | None,
-                 as_built: dict, options: dict | None) -> dict:
+                 as_built: dict, options: dict | None, check_deadline=None) -> dict:
+    """The analyses blocks; ``check_deadline`` (optional) is the web layer's compute-budget
+    checker, called between Monte Carlo chunks."""
     options = options or {}
     temperature_k = options.get("temperature_k")
     blocks = {
@@ -42,6 +44,7 @@ def extra_blocks(circuit: Circuit, *, target: Target | None, input_peak_v: float
             resistor_tolerance_pct=float(tol["resistor_tolerance_pct"]),
             capacitor_tolerance_pct=float(tol["capacitor_tolerance_pct"]),
             gbw_tolerance_pct=float(tol.get("gbw_tolerance_pct") or 0.0),
+            check_deadline=check_deadline,
         )
     resp = options.get("response")
     if resp is not None:

@@ -259,8 +259,11 @@ def build(circuit: Circuit) -> MnaSystem:
         else:
             ref = "VDIV"
     bld.source("VS", "VS")
-    bld.resistor("R_source", "VS", "X1", circuit.source_impedance_ohm, "source")
-    x = "X1"
+    if circuit.source_impedance_ohm > 0:
+        bld.resistor("R_source", "VS", "X1", circuit.source_impedance_ohm, "source")
+        x = "X1"
+    else:  # an ideal source: X1 is the source node itself (and adds no thermal noise)
+        x = "VS"
     for k, st in enumerate(circuit.stages, start=1):
         grp = f"stage{k}"
         out = f"O{k}"

@@ -40,7 +40,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from service.engine.chain import TWO_PI, ChainParams, params_from_circuit, solve_params
-from service.engine.corners import find_band
+from service.engine.corners import F_MAX_HZ, find_band
 from service.engine.model import Circuit, Target
 
 MAX_TRIALS = 100_000
@@ -471,8 +471,12 @@ def draw(parts, trials: int, tol: Tolerances, rng: np.random.Generator) -> np.nd
 
 def run(circuit: Circuit, *, trials: int, tol: Tolerances, rng: np.random.Generator,
         grid_hz: np.ndarray, workers: int | None = None,
-        model: str | None = None) -> MonteCarloResult:
-    """Run ``trials`` Monte Carlo trials of the circuit (``model`` default: :func:`model_for`)."""
+        model: str | None = None, check_deadline=None) -> MonteCarloResult:
+    """Run ``trials`` Monte Carlo trials of the circuit (``model`` default: :func:`model_for`).
+
+    ``check_deadline`` (optional, no arguments or one label) is called before every chunk;
+    the web layer passes its compute-budget checker, which raises once time is up.
+    """
     model = model or model_for(circuit)
     if not 1 <= trials <= MAX_TRIALS:
         raise ValueError(f"trials must be 1..{MAX_TRIALS}, got {trials}")
@@ -483,6 +487,8 @@ def run(circuit: Circuit, *, trials: int, tol: Tolerances, rng: np.random.Genera
 
     def one(chunk):
         a, b = chunk
+        if check_deadline is not None:
+            check_deadline("tolerance Monte Carlo")
         p = with_values(params, parts, values[a:b])
         return figures(p, grid_hz, b - a, model)
 
@@ -525,6 +531,10 @@ def worst_cases(circuit: Circuit, *, tol: Tolerances, grid_hz: np.ndarray) -> di
     return out
 
 
+def _float_or_nan(value) -> float:
+    return math.nan if value is None else float(value)
+
+
 def summary(values: np.ndarray) -> dict:
     """min, p1, p5, p50, p95, p99, max over the finite values (None when there are none)."""
     finite = values[np.isfinite(values)]
@@ -553,14 +563,18 @@ def meets(result: MonteCarloResult, target: Target) -> np.ndarray:
 def tolerance_block(circuit: Circuit, *, target: Target | None, as_built: dict, trials: int,
                     seed: int, resistor_tolerance_pct: float, capacitor_tolerance_pct: float,
                     gbw_tolerance_pct: float = 0.0,
-                    frequency_points: int = DEFAULT_FREQUENCY_POINTS) -> dict:
+                    frequency_points: int = DEFAULT_FREQUENCY_POINTS,
+                    check_deadline=None) -> dict:
     """The response's ``tolerance`` block (JSON-ready)."""
     tol = Tolerances(resistor_tolerance_pct, capacitor_tolerance_pct, gbw_tolerance_pct)
-    f_low = as_built.get("f_low_hz")
-    f_low = float("nan") if f_low is None else float(f_low)
-    grid = analysis_grid(f_low, float(as_built["f_high_hz"]), frequency_points)
+    f_low = _float_or_nan(as_built.get("f_low_hz"))
+    f_high = _float_or_nan(as_built.get("f_high_hz"))
+    if not math.isfinite(f_high):  # no high corner below 10 GHz: grid up to the range top
+        f_high = F_MAX_HZ / 10 ** GRID_MARGIN_DECADES
+    grid = analysis_grid(f_low, f_high, frequency_points)
     rng = np.random.default_rng(seed)
-    result = run(circuit, trials=trials, tol=tol, rng=rng, grid_hz=grid)
+    result = run(circuit, trials=trials, tol=tol, rng=rng, grid_hz=grid,
+                 check_deadline=check_deadline)
     nominal = dict(zip(FIGURES, nominal_figures(circuit, grid, result.model), strict=True))
     worst = worst_cases(circuit, tol=tol, grid_hz=grid)
     reference = {"gain_db": as_built.get("gain_db"), "f_low_hz": as_built.get("f_low_hz"),

@@ -193,3 +193,33 @@ def test_dc_coupled_has_no_low_corner_and_meets_low_target():
     assert block["f_low_hz"]["p50"] is None
     assert block["f_low_hz"]["missing"] == 300
     assert block["yield"] == 1.0
+
+
+def test_deadline_checker_is_called_per_chunk_and_can_stop_the_run():
+    circuit = ALL["noninv_single_shared"]()
+    calls = []
+
+    class Stop(Exception):
+        pass
+
+    def check(where=None):
+        calls.append(where)
+        if len(calls) == 2:
+            raise Stop(where)
+
+    with pytest.raises(Stop, match="Monte Carlo"):
+        mc.run(circuit, trials=3 * mc.CHUNK_TRIALS, tol=mc.Tolerances(1, 10),
+               rng=np.random.default_rng(1), grid_hz=np.logspace(0, 7, 50),
+               check_deadline=check)
+    assert len(calls) == 2
+
+
+def test_block_without_a_high_corner_does_not_fail():
+    # A hand-edited circuit may have no high corner below 10 GHz (as_built f_high null).
+    circuit = one_stage_coupling()
+    ab = as_built_of(circuit)
+    block = mc.tolerance_block(circuit, target=None, as_built=dict(ab, f_high_hz=None),
+                               trials=50, seed=1, resistor_tolerance_pct=1.0,
+                               capacitor_tolerance_pct=10.0)
+    assert block["model"]["grid_hz"][1] == pytest.approx(1e10)
+    assert block["f_low_hz"]["p50"] == pytest.approx(ab["f_low_hz"], rel=0.1)

@@ -137,3 +137,20 @@ def test_temperature_scales_thermal_noise():
     warm = noise.noise_block(circuit, as_built=ab, input_peak_v=None, temperature_k=300.0)
     assert (warm["output_rms_v"]["band"] / cold["output_rms_v"]["band"]) ** 2 == \
         pytest.approx(2.0, rel=1e-12)
+
+
+def test_zero_source_impedance_is_an_ideal_source():
+    # An ideal source (Rs = 0) has no thermal noise and joins X1 to Vs; the MNA must not
+    # stamp 1/0. Reference: the chain solver, which takes Rs = 0 in its closed forms.
+    from dataclasses import replace
+
+    circuit = replace(noninv_single(buffered=False), source_impedance_ohm=0.0)
+    f = np.logspace(0, 6, 13)
+    from service.engine import mna
+
+    np.testing.assert_allclose(mna.signal_gain(circuit, f), chain.solve(circuit, f).vout,
+                               rtol=1e-9)
+    spec = noise.output_noise(circuit, f)
+    assert "R_source" not in spec.by_source
+    block = noise.noise_block(circuit, as_built=as_built_of(circuit), input_peak_v=0.001)
+    assert block["other"]["source"]["share"] == 0.0

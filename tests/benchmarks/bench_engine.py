@@ -41,12 +41,20 @@ DEFAULT_REQUEST = {
 
 
 def median_seconds(fn, repeat: int) -> float:
-    times = []
+    """Median wall-clock time of ``fn`` over ``repeat`` runs."""
+    return median_wall_cpu(fn, repeat)[0]
+
+
+def median_wall_cpu(fn, repeat: int) -> tuple[float, float]:
+    """Median wall-clock and CPU (this process) times; CPU time is the steadier figure on a
+    machine shared with other jobs."""
+    wall, cpu = [], []
     for _ in range(repeat):
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         fn()
-        times.append(time.perf_counter() - t0)
-    return statistics.median(times)
+        wall.append(time.perf_counter() - t0)
+        cpu.append(time.process_time() - c0)
+    return statistics.median(wall), statistics.median(cpu)
 
 
 def section(title):
@@ -112,9 +120,16 @@ def bench_montecarlo():
         variants["shared VMID"] = replace(circuit, bias=replace(circuit.bias, buffered=False))
     for label, c in variants.items():
         model = mc.model_for(c)
-        t = median_seconds(lambda c=c: mc.run(c, trials=10_000, tol=tol,
-                                               rng=np.random.default_rng(1), grid_hz=grid), 7)
-        print(f"{label:14s} model {model:13s}: {t * 1e3:7.1f} ms  (cpu count {os.cpu_count()})")
+        wall, cpu = median_wall_cpu(lambda c=c: mc.run(c, trials=10_000, tol=tol,
+                                                        rng=np.random.default_rng(1),
+                                                        grid_hz=grid), 7)
+        print(f"{label:14s} model {model:20s}: {wall * 1e3:7.1f} ms wall, {cpu * 1e3:7.1f} ms "
+              f"cpu  ({os.cpu_count()} cpus, load {os.getloadavg()[0]:.2f})")
+    wall, cpu = median_wall_cpu(lambda: mc.run(circuit, trials=10_000, tol=tol,
+                                               rng=np.random.default_rng(1), grid_hz=grid,
+                                               model=mc.CHAIN_NODAL), 3)
+    print(f"reference: chain-nodal solver itself: {wall * 1e3:7.1f} ms wall, "
+          f"{cpu * 1e3:7.1f} ms cpu")
     t = median_seconds(lambda: mc.tolerance_block(
         circuit, target=None, as_built=ab, trials=10_000, seed=1, resistor_tolerance_pct=1.0,
         capacitor_tolerance_pct=10.0, gbw_tolerance_pct=10.0), 5)
