@@ -22,6 +22,11 @@ from service.config import server_settings  # noqa: E402
 
 _settings = server_settings()
 
+# One BLAS/OpenMP thread per worker (workers x threads must not oversubscribe the cores).
+# Set before the app (numpy) is imported, which preload_app does after this file runs.
+for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
+
 # --- socket -----------------------------------------------------------------------------
 bind = [f"{_settings['host']}:{_settings['port']}"]
 # forwarded_allow_ips is deliberately left at gunicorn's default (127.0.0.1): behind the
@@ -60,6 +65,20 @@ accesslog = None
 errorlog = "-"
 loglevel = _settings["log_level"].lower()
 capture_output = False
+# gunicorn's own lines (start-up, worker boots and deaths) as JSON objects too, so stderr
+# holds one JSON object per line from every source (merged into gunicorn's logging defaults).
+# The loggers do not propagate to the root logger (whose handler writes to stdout), so each
+# line is written once.
+logconfig_dict = {
+    "formatters": {"generic": {"()": "service.ops.logs.JsonFormatter"}},
+    "loggers": {
+        "gunicorn.error": {"level": _settings["log_level"], "handlers": ["error_console"],
+                           "propagate": False, "qualname": "gunicorn.error"},
+        # Off: the app writes the per-request line (with its request id) itself.
+        "gunicorn.access": {"level": "CRITICAL", "handlers": [],
+                            "propagate": False, "qualname": "gunicorn.access"},
+    },
+}
 proc_name = "gainchain"
 
 # --- Prometheus multiprocess mode -------------------------------------------------------

@@ -56,7 +56,7 @@ def init_app(app: Flask) -> None:
         g.request_started = time.perf_counter()
         g.request_id = logs.request_id_from(request.headers.get("X-Request-ID"))
         budget.start(budget_s)
-        if allowed_origins and cors.is_preflight(request):
+        if cors.is_preflight(request):  # exempt from auth: browsers send no credentials
             origin = cors.allowed_origin(request, allowed_origins)
             if origin:
                 return cors.preflight_response(origin)

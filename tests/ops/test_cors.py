@@ -68,3 +68,14 @@ def test_preflight_from_refused_origin_gets_no_cors_headers(client):
 def test_no_cors_headers_at_all_when_not_configured():
     resp = make_app().test_client().get("/healthz", headers={"Origin": PORTAL})
     assert not [h for h in resp.headers.keys() if h.startswith("Access-Control-")]
+
+
+def test_preflight_is_exempt_from_auth_even_without_cors():
+    client = make_app({"GAINCHAIN_API_KEYS": "k-1"}).test_client()
+    resp = client.options("/v1/designs", headers={
+        "Origin": PORTAL, "Access-Control-Request-Method": "POST"})
+    assert resp.status_code == 200  # Flask's automatic OPTIONS answer
+    assert "Access-Control-Allow-Origin" not in resp.headers
+    # A plain OPTIONS (not a preflight) still needs the key.
+    assert make_app({"GAINCHAIN_API_KEYS": "k-1"}).test_client().options(
+        "/v1/designs").status_code == 401

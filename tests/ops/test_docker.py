@@ -145,13 +145,15 @@ out["defaults"] = {n: cfg.settings[n].default for n in ("limit_request_line",
 out["hooks"] = sorted(k for k in ("child_exit", "on_exit") if callable(ns.get(k)))
 out["set_names"] = sorted(k for k in ns if k in cfg.settings)
 out["multiproc"] = ns["os"].environ.get("PROMETHEUS_MULTIPROC_DIR")
+out["omp"] = ns["os"].environ.get("OMP_NUM_THREADS")
 ns["on_exit"](None)
 print(json.dumps(out, default=str))
 """
     import os
 
     env = {k: v for k, v in os.environ.items()
-           if k not in ("PROMETHEUS_MULTIPROC_DIR", "HOST", "PORT", "GAINCHAIN_WORKERS")}
+           if k not in ("PROMETHEUS_MULTIPROC_DIR", "HOST", "PORT", "GAINCHAIN_WORKERS",
+                        "OMP_NUM_THREADS")}
     env.update(env_extra)
     done = subprocess.run([sys.executable, "-c", code, str(ROOT / "docker" / "gunicorn.conf.py")],
                           capture_output=True, text=True, env=env, timeout=60, check=True)
@@ -174,5 +176,6 @@ def test_gunicorn_config_values():
     assert cfg["forwarded_allow_ips"] == [ip.strip() for ip in default_ips.split(",")]
     assert cfg["errorlog"] == "-"
     assert cfg["hooks"] == ["child_exit", "on_exit"]
+    assert cfg["omp"] == "1"
     assert cfg["multiproc"] and "gainchain-metrics-" in cfg["multiproc"]
     assert not Path(cfg["multiproc"]).exists()  # on_exit removed the directory it made

@@ -138,3 +138,20 @@ def test_chunked_body_within_the_limit_is_read_whole():
                        headers={"Transfer-Encoding": "chunked"})
     assert resp.status_code == 200
     assert resp.get_json() == {"received_bytes": len(data)}
+
+
+def test_real_endpoint_stops_at_the_budget():
+    # POST /v1/designs/batch checks the budget between items (service/blueprints/batch.py).
+    client = make_app({"GAINCHAIN_COMPUTE_BUDGET_S": "0.000001"}).test_client()
+    item = {"target": {"gain_db": 40, "f_low_hz": 100, "f_high_hz": 10000},
+            "supply": {"kind": "dual", "v_pos": 5, "v_neg": -5}, "opamp": "gc-cmos-rr-10m"}
+    # 1 us is over long before the first item (parsing the body alone takes longer).
+    assert_problem(client.post("/v1/designs/batch", json={"requests": [item] * 3}), 503)
+
+
+def test_readyz_is_503_problem_without_a_catalog():
+    app = make_app()
+    client = app.test_client()
+    assert client.get("/readyz").status_code == 200
+    app.extensions["gainchain_catalog"] = {}
+    assert_problem(client.get("/readyz"), 503)

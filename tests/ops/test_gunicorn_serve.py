@@ -56,7 +56,7 @@ def server(tmp_path_factory):
     env.update({"HOST": "127.0.0.1", "PORT": str(port), "GAINCHAIN_WORKERS": "2",
                 "GAINCHAIN_API_KEYS": "serve-test-key", "GAINCHAIN_MAX_BODY_BYTES": "4096",
                 "PROMETHEUS_MULTIPROC_DIR": str(metrics_dir), "OMP_NUM_THREADS": "1",
-                "GAINCHAIN_LOG_LEVEL": "WARNING"})
+                "GAINCHAIN_LOG_LEVEL": "INFO"})
     log_path = tmp_path_factory.mktemp("gunicorn") / "stderr.log"
     log_file = open(log_path, "wb")  # a file, not a pipe: a full pipe would block gunicorn
     proc = subprocess.Popen(_container_argv(), cwd=ROOT, env=env, stdout=subprocess.DEVNULL,
@@ -77,7 +77,8 @@ def server(tmp_path_factory):
             if time.monotonic() > deadline:
                 pytest.fail(f"gunicorn did not answer /healthz within {START_TIMEOUT_S} s")
             time.sleep(0.2)
-        yield {"port": port, "healthz_polls": polls, "metrics_dir": metrics_dir, "proc": proc}
+        yield {"port": port, "healthz_polls": polls, "metrics_dir": metrics_dir, "proc": proc,
+               "log_path": log_path}
     finally:
         proc.send_signal(signal.SIGTERM)
         try:
@@ -153,3 +154,13 @@ def test_metrics_add_up_across_workers(server):
     assert total == n + 1 + server["healthz_polls"]
     pids = {p.stem.rsplit("_", 1)[-1] for p in Path(server["metrics_dir"]).glob("counter_*.db")}
     assert len(pids) == 2, pids  # both workers counted requests; /metrics summed both
+
+
+def test_stderr_is_one_json_object_per_line(server):
+    _get(server["port"], "/healthz", headers={"X-Request-ID": "serve-log-check"})
+    time.sleep(0.3)
+    lines = [line for line in server["log_path"].read_text().splitlines() if line.strip()]
+    docs = [json.loads(line) for line in lines]  # raises on any non-JSON line
+    assert any(d.get("logger", "").startswith("gunicorn") for d in docs)  # gunicorn's own
+    assert any(d.get("request_id") == "serve-log-check" and d.get("event") == "request"
+               for d in docs)

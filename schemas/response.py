@@ -1,0 +1,181 @@
+"""Response bodies of /v1/designs and /v1/analyses (the published contract).
+
+The service builds these bodies as plain dicts (``service.engine.report``) and writes them
+with the strict JSON writer; these schemas describe them for the OpenAPI document, and the
+schemathesis run checks every reply against them. Non-finite numbers are written as null,
+so every float here may be null.
+"""
+
+from __future__ import annotations
+
+from marshmallow import Schema, fields
+
+from schemas.circuit import CircuitOutSchema
+from schemas.extras import (
+    NoiseBlockSchema,
+    ResponseBlockSchema,
+    SupplyRejectionBlockSchema,
+    ToleranceBlockSchema,
+)
+from schemas.fields import OutFloat
+
+
+def _pair():
+    return fields.List(OutFloat(), metadata={"description": "[low, high]"})
+
+
+class TargetOutSchema(Schema):
+    gain = OutFloat()
+    gain_db = OutFloat()
+    f_low_hz = OutFloat()
+    f_high_hz = OutFloat()
+    gain_tolerance_db = OutFloat()
+
+
+class ShortfallSchema(Schema):
+    quantity = fields.String(metadata={"description": "f_low_hz, f_high_hz, gain_db or "
+                                                      "noise_gain"})
+    target = OutFloat()
+    achieved = OutFloat()
+
+
+class WarningSchema(Schema):
+    code = fields.String()
+    message = fields.String()
+
+
+class IdealSchema(Schema):
+    stage_gain = OutFloat()
+    stage_f_high_hz = OutFloat()
+    stage_f_low_hz = OutFloat()
+    f_high_hz = OutFloat()
+    f_low_hz = OutFloat()
+    bandwidth_hz = OutFloat()
+    single_stage_f_high_hz = OutFloat()
+    bandwidth_fraction = OutFloat()
+
+
+class StageFiguresSchema(Schema):
+    gain = OutFloat()
+    f_low_hz = OutFloat()
+    f_high_hz = OutFloat()
+
+
+class AsBuiltSchema(Schema):
+    gain = OutFloat()
+    gain_db = OutFloat()
+    f_low_hz = OutFloat(metadata={"description": "null when DC coupled"})
+    f_high_hz = OutFloat()
+    bandwidth_hz = OutFloat()
+    inverting = fields.Boolean()
+    stages = fields.List(fields.Nested(StageFiguresSchema))
+
+
+class PerformanceSchema(Schema):
+    ideal = fields.Nested(IdealSchema)
+    as_built = fields.Nested(AsBuiltSchema)
+
+
+class AnalysisPerformanceSchema(Schema):
+    as_built = fields.Nested(AsBuiltSchema)
+
+
+class StageHeadroomSchema(Schema):
+    stage = fields.Integer()
+    output_dc_v = OutFloat()
+    offset_worst_v = OutFloat()
+    swing_window_v = _pair()
+    output_peak_v = OutFloat()
+    available_peak_v = OutFloat()
+    swing_headroom_db = OutFloat()
+    max_input_peak_v = OutFloat()
+    required_slew_v_per_us = OutFloat()
+    opamp_slew_v_per_us = OutFloat()
+    slew_ok = fields.Boolean()
+    full_power_bandwidth_hz = OutFloat()
+    input_cm_v = _pair()
+    cm_window_v = _pair()
+    cm_ok = fields.Boolean()
+
+
+class OverallHeadroomSchema(Schema):
+    min_swing_headroom_db = OutFloat()
+    limiting_stage = fields.Integer()
+    max_input_peak_v = OutFloat()
+    output_peak_v = OutFloat()
+    slew_ok = fields.Boolean()
+    cm_ok = fields.Boolean()
+
+
+class HeadroomSchema(Schema):
+    stages = fields.List(fields.Nested(StageHeadroomSchema))
+    overall = fields.Nested(OverallHeadroomSchema)
+
+
+class BiasReportSchema(Schema):
+    ref = fields.String(metadata={"description": "VMID (single supply) or GND (dual)"})
+    vmid_v = OutFloat()
+    vmid_target_v = OutFloat()
+    reason = fields.String()
+    r_top_ohm = OutFloat()
+    r_bottom_ohm = OutFloat()
+    c_bypass_f = OutFloat()
+    buffered = fields.Boolean(allow_none=True)
+    node_impedance_ohm = OutFloat()
+    bypass_corner_hz = OutFloat()
+    divider_current_a = OutFloat()
+
+
+class TradeoffRowSchema(Schema):
+    stages = fields.Integer()
+    stage_gain = OutFloat()
+    stage_gain_db = OutFloat()
+    stage_f_high_hz = OutFloat()
+    f_high_hz = OutFloat()
+    stage_f_low_hz = OutFloat()
+    stable = fields.Boolean()
+    meets_target = fields.Boolean()
+    opamp_packages = fields.Integer()
+    part_count = fields.Integer()
+
+
+class TradeoffSchema(Schema):
+    rows = fields.List(fields.Nested(TradeoffRowSchema))
+    optimal_stages = OutFloat(metadata={"description": "real n maximising ideal bandwidth"})
+    best_stages = fields.Integer()
+    required_gbw_hz = OutFloat(metadata={"description": "null when some n reaches the target"})
+    required_gbw_stages = fields.Integer(allow_none=True)
+
+
+class _AnalysesBlocks(Schema):
+    noise = fields.Nested(NoiseBlockSchema)
+    supply_rejection = fields.Nested(SupplyRejectionBlockSchema, allow_none=True)
+    tolerance = fields.Nested(ToleranceBlockSchema)
+    response = fields.Nested(ResponseBlockSchema)
+
+
+class DesignResponseSchema(_AnalysesBlocks):
+    name = fields.String(allow_none=True)
+    status = fields.String(metadata={"enum": ["meets_target", "target_not_met"]})
+    shortfalls = fields.List(fields.Nested(ShortfallSchema))
+    target = fields.Nested(TargetOutSchema)
+    stage_count = fields.Integer()
+    topology = fields.String()
+    circuit = fields.Nested(CircuitOutSchema)
+    performance = fields.Nested(PerformanceSchema)
+    headroom = fields.Nested(HeadroomSchema)
+    bias = fields.Nested(BiasReportSchema)
+    tradeoff = fields.Nested(TradeoffSchema)
+    warnings = fields.List(fields.Nested(WarningSchema))
+    cautions = fields.List(fields.String())
+
+
+class AnalysisResponseSchema(_AnalysesBlocks):
+    name = fields.String(allow_none=True)
+    status = fields.String(metadata={"enum": ["meets_target", "target_not_met"]})
+    shortfalls = fields.List(fields.Nested(ShortfallSchema))
+    performance = fields.Nested(AnalysisPerformanceSchema)
+    headroom = fields.Nested(HeadroomSchema)
+    bias = fields.Nested(BiasReportSchema)
+    warnings = fields.List(fields.Nested(WarningSchema))
+    cautions = fields.List(fields.String())
