@@ -85,7 +85,17 @@ class Operation:
     parameters: dict = field(default_factory=dict)  # extra docs per path parameter
     path_enums: dict = field(default_factory=dict)  # path parameter -> "module:TUPLE" of values
     query: tuple = ()  # OpenAPI parameter objects for the query string (values may be refs)
+    request_example: dict | None = None  # a valid body (docs, client generators, the fuzzer)
 
+
+# The README's worked example (a 5 V single-supply 40 kHz receive chain, 60 dB, 2..200 kHz).
+README_EXAMPLE = {
+    "name": "ultrasonic-rx-40k",
+    "target": {"gain_db": 60, "f_low_hz": 2000, "f_high_hz": 200000},
+    "supply": {"kind": "single", "v_pos": 5},
+    "signal": {"input_peak_v": 0.001, "source_impedance_ohm": 200, "load_ohm": 10000},
+    "opamp": "gc-cmos-rr-10m",
+}
 
 _PLOT_BODY = {"anyOf": ["schemas.request:DesignRequestSchema",
                         "schemas.request:AnalysisRequestSchema"]}
@@ -113,7 +123,8 @@ OPERATIONS: tuple[Operation, ...] = (
               parameters={"opamp_id": "Catalog id (see GET /v1/opamps)."}),
     Operation("/v1/designs", "POST", "Design a cascade of gain stages for a target.", "designs",
               {200: {JSON: "schemas.response:DesignResponseSchema"}},
-              request="schemas.request:DesignRequestSchema", errors=COMPUTE_ERRORS),
+              request="schemas.request:DesignRequestSchema", errors=COMPUTE_ERRORS,
+              request_example=README_EXAMPLE),
     Operation("/v1/designs/batch", "POST", "Design up to 100 targets in one call.", "designs",
               {200: {JSON: {"type": "object", "additionalProperties": False,
                             "required": ["results"],
@@ -128,7 +139,7 @@ OPERATIONS: tuple[Operation, ...] = (
                        "properties": {"requests": {
                            "type": "array", "maxItems": "service.blueprints.batch:MAX_BATCH",
                            "items": "schemas.request:DesignRequestSchema"}}},
-              errors=COMPUTE_ERRORS,
+              errors=COMPUTE_ERRORS, request_example={"requests": [README_EXAMPLE]},
               description="Results come in request order; a bad item gets a problem document "
                           "in its slot (status 4xx) and does not fail the others."),
     Operation("/v1/analyses", "POST", "Analyse a (possibly hand-edited) circuit.", "analyses",
@@ -138,7 +149,7 @@ OPERATIONS: tuple[Operation, ...] = (
               {200: {CSV: TEXT_BODY, XLSX: BINARY, TEXT: TEXT_BODY, XML: TEXT_BODY}},
               request={"anyOf": ["schemas.request:DesignRequestSchema",
                                  "service.openapi:ExportCircuitBodySchema"]},
-              errors=COMPUTE_ERRORS + (404,),
+              errors=COMPUTE_ERRORS + (404,), request_example=README_EXAMPLE,
               description="The body is a design request (designed first) or "
                           "{name, circuit}. bom.csv -> text/csv, bom.xlsx -> xlsx workbook, "
                           "netlist.cir -> SPICE deck (text/plain), netlist.net -> KiCad "
@@ -154,10 +165,12 @@ OPERATIONS: tuple[Operation, ...] = (
                       "schema": {"type": "string", "format": "date"}})),
     Operation("/v1/plots/bode.svg", "POST", "Bode plot (SVG) of a design or a circuit.",
               "plots", {200: {SVG: TEXT_BODY}}, request=_PLOT_BODY, query=_PLOT_QUERY,
-              errors=COMPUTE_ERRORS, description=_PLOT_DESCRIPTION),
+              errors=COMPUTE_ERRORS, description=_PLOT_DESCRIPTION,
+              request_example=README_EXAMPLE),
     Operation("/v1/plots/bode.png", "POST", "Bode plot (PNG) of a design or a circuit.",
               "plots", {200: {PNG: BINARY}}, request=_PLOT_BODY, query=_PLOT_QUERY,
-              errors=COMPUTE_ERRORS, description=_PLOT_DESCRIPTION),
+              errors=COMPUTE_ERRORS, description=_PLOT_DESCRIPTION,
+              request_example=README_EXAMPLE),
 )
 
 
@@ -371,10 +384,10 @@ def build_spec(app) -> dict:
         if params:
             operation["parameters"] = params
         if op.request is not None:
-            operation["requestBody"] = {
-                "required": True,
-                "content": {JSON: {"schema": _schema_entry(op.request, pending)}},
-            }
+            media = {"schema": _schema_entry(op.request, pending)}
+            if op.request_example is not None:
+                media["example"] = op.request_example
+            operation["requestBody"] = {"required": True, "content": {JSON: media}}
         responses = {}
         for status, media in op.responses.items():
             responses[str(status)] = {

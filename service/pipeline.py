@@ -12,7 +12,6 @@ import time
 
 from marshmallow import ValidationError
 
-from schemas.circuit import CircuitSchema
 from schemas.request import AnalysisRequestSchema, DesignRequestSchema
 from service.engine import design as design_mod
 from service.engine import extras, report
@@ -21,7 +20,6 @@ from service.errors import ApiProblem
 
 _DESIGN_SCHEMA = DesignRequestSchema()
 _ANALYSIS_SCHEMA = AnalysisRequestSchema()
-_CIRCUIT_SCHEMA = CircuitSchema()
 
 
 def _catalog(catalog):
@@ -69,11 +67,16 @@ def _options(data: dict) -> dict:
     return out
 
 
+def _deadline():
+    """The compute-budget checker of the current request (never raises outside one)."""
+    from service.ops import budget
+
+    return budget.checker()
+
+
 def _observe(seconds: float) -> None:
-    try:
-        from service.ops.metrics import observe_design_seconds
-    except ImportError:  # metrics not installed in this build
-        return
+    from service.ops.metrics import observe_design_seconds
+
     observe_design_seconds(seconds)
 
 
@@ -87,9 +90,10 @@ def run_design(body, catalog=None) -> dict:
     """
     req, options = load_design_request(body, catalog)
     started = time.perf_counter()
-    result = design_mod.design(req)
+    check = _deadline()
+    result = design_mod.design(req, check_deadline=check)
     if req.strict and result.status != "meets_target":
-        best = design_mod.best_design(req)
+        best = design_mod.best_design(req, check_deadline=check)
         best_body = _design_body(best, options)
         raise ApiProblem(
             422, "Target not met",
@@ -106,18 +110,8 @@ def _design_body(result: design_mod.Design, options: dict) -> dict:
     circuit = result.synthesis.circuit
     out.update(extras.extra_blocks(
         circuit, target=result.request.target, input_peak_v=result.request.signal.input_peak_v,
-        as_built=out["performance"]["as_built"], options=options))
+        as_built=out["performance"]["as_built"], options=options, check_deadline=_deadline()))
     return out
-
-
-def load_circuit(data) -> Circuit:
-    """Validate a circuit JSON object (raises ValidationError)."""
-    if not isinstance(data, dict):
-        raise ValidationError({"circuit": ["Give the circuit object a design returns."]})
-    try:
-        return _CIRCUIT_SCHEMA.load(data)
-    except ValidationError as exc:
-        raise ValidationError({"circuit": exc.messages}) from None
 
 
 def run_analysis(body) -> dict:
@@ -132,6 +126,7 @@ def run_analysis(body) -> dict:
     out.update(report.analysis_block(circuit, target=target, input_peak_v=data["input_peak_v"]))
     options = _options(data)
     out.update(extras.extra_blocks(circuit, target=target, input_peak_v=data["input_peak_v"],
-                                   as_built=out["performance"]["as_built"], options=options))
+                                   as_built=out["performance"]["as_built"], options=options,
+                                   check_deadline=_deadline()))
     return out
 

@@ -540,13 +540,21 @@ def best_reach(req: DesignRequest) -> int:
     return best
 
 
-def design(req: DesignRequest) -> Design:
+def _no_deadline(where: str | None = None) -> None:
+    return None
+
+
+def design(req: DesignRequest, *, check_deadline=None) -> Design:
     """Design the cascade: the requested stage count, or the fewest stages that meet the
     target (auto); when none does, the stage count with the highest as-built f_high.
 
+    :param check_deadline: optional callable, called before each candidate stage count is
+        synthesised; the web layer passes its compute-budget checker, which raises once the
+        request has used its budget.
     :raise EngineError: the supply span does not suit the op-amp, or DC coupling was asked
         for on a single supply.
     """
+    check_deadline = check_deadline or _no_deadline
     check_request(req)
     if req.stages is not None:
         syn = synthesize(req, req.stages)
@@ -554,6 +562,7 @@ def design(req: DesignRequest) -> Design:
         tried: dict[int, Synthesis] = {}
         syn = None
         for n in stage_counts_to_try(req):
+            check_deadline("design")
             tried[n] = synthesize(req, n)
             if status_of(tried[n].as_built, req.target, tried[n].circuit)[0] == "meets_target":
                 syn = tried[n]
@@ -562,6 +571,7 @@ def design(req: DesignRequest) -> Design:
             reach = best_reach(req)
             for n in (reach - 1, reach, reach + 1):
                 if 1 <= n <= ideal.MAX_STAGES and n not in tried and _stable(req, n):
+                    check_deadline("design")
                     tried[n] = synthesize(req, n)
             if not tried:  # no stage count is stable: best_reach's pick, flagged by a warning
                 tried[reach] = synthesize(req, reach)
@@ -579,11 +589,12 @@ def best_by_f_high(tried: dict) -> Synthesis:
     return tried[n]
 
 
-def best_design(req: DesignRequest) -> Design:
+def best_design(req: DesignRequest, *, check_deadline=None) -> Design:
     """The best achievable design for ``strict`` failures: the stage count (1..12) with
     the highest as-built f_high, searched around the ideal optimum."""
     reach = best_reach(req)
     tried = {n: synthesize(req, n) for n in (reach - 1, reach, reach + 1)
              if 1 <= n <= ideal.MAX_STAGES and _stable(req, n)} or {reach: synthesize(req, reach)}
     syn = best_by_f_high(tried)
-    return design(replace(req, stages=syn.circuit.n_stages, strict=False))
+    return design(replace(req, stages=syn.circuit.n_stages, strict=False),
+                  check_deadline=check_deadline)

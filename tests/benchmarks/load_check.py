@@ -232,9 +232,12 @@ def main(argv=None) -> int:
         workers = worker_pids(proc.pid)
         rss_before = {pid: rss_kib(pid) for pid in workers}
 
-        results = [drive(port, Phase(name), plan, args.seconds, args.connections)
-                   for name, plan in (("healthz", healthz_plan), ("design-readme", design_plan),
-                                      ("design-mix", mix_plan))]
+        results = []
+        for name, plan in (("healthz", healthz_plan), ("design-readme", design_plan),
+                           ("design-mix", mix_plan)):
+            summary = drive(port, Phase(name), plan, args.seconds, args.connections)
+            summary["rss_kib_after_phase"] = {pid: rss_kib(pid) for pid in workers}
+            results.append(summary)
         workers_after = worker_pids(proc.pid)
         rss_after = {pid: rss_kib(pid) for pid in workers_after}
     finally:
@@ -255,6 +258,7 @@ def main(argv=None) -> int:
     for r in results:
         print(f"{r['phase']:<15}{r['requests']:>9}{r['req_per_s']:>9}{r['p50_ms']:>9}"
               f"{r['p99_ms']:>9}{r['unexpected']:>12}  {r['statuses']}")
+        print(f"    worker RSS after this phase (KiB): {r['rss_kib_after_phase']}")
         for key, count in r["unexpected_detail"].items():
             print(f"    unexpected: {key} x{count}")
     print(f"design (README example) / healthz requests/s ratio: {ratio:.3f} (goal >= 0.5)")

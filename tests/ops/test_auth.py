@@ -12,7 +12,8 @@ import pytest
 
 from service.config import from_environment
 from service.ops import auth
-from tests.ops.conftest import assert_problem, make_app
+
+from .conftest import assert_problem, make_app
 
 KEYS = {"GAINCHAIN_API_KEYS": "alpha-key-1, beta-key-2"}
 

@@ -5,7 +5,8 @@ from __future__ import annotations
 import pytest
 
 from service.config import from_environment, server_settings
-from tests.ops.conftest import make_app
+
+from .conftest import make_app
 
 
 def test_defaults():

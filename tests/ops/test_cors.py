@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import pytest
 
-from tests.ops.conftest import make_app
+from .conftest import make_app
 
 PORTAL = "https://portal.example.invalid"
 ENV = {"GAINCHAIN_CORS_ORIGINS": f"{PORTAL}, https://plm.example.invalid:8443",

@@ -13,7 +13,8 @@ import pytest
 
 from service.config import from_environment
 from service.ops import budget
-from tests.ops.conftest import assert_problem, make_app
+
+from .conftest import assert_problem, make_app
 
 
 def test_404_is_problem(client):
@@ -143,8 +144,8 @@ def test_chunked_body_within_the_limit_is_read_whole():
 def test_real_endpoint_stops_at_the_budget():
     # POST /v1/designs/batch checks the budget between items (service/blueprints/batch.py).
     client = make_app({"GAINCHAIN_COMPUTE_BUDGET_S": "0.000001"}).test_client()
-    item = {"target": {"gain_db": 40, "f_low_hz": 100, "f_high_hz": 10000},
-            "supply": {"kind": "dual", "v_pos": 5, "v_neg": -5}, "opamp": "gc-cmos-rr-10m"}
+    item = {"target": {"gain_db": 60, "f_low_hz": 2000, "f_high_hz": 200000},  # README
+            "supply": {"kind": "single", "v_pos": 5}, "opamp": "gc-cmos-rr-10m"}
     # 1 us is over long before the first item (parsing the body alone takes longer).
     assert_problem(client.post("/v1/designs/batch", json={"requests": [item] * 3}), 503)
 

@@ -18,7 +18,7 @@ from pathlib import Path
 import pytest
 from prometheus_client.parser import text_string_to_metric_families
 
-from tests.ops.test_docker import DOCKERFILE, dockerfile_instructions, stages
+from .test_docker import DOCKERFILE, dockerfile_instructions, stages
 
 ROOT = Path(__file__).resolve().parents[2]
 START_TIMEOUT_S = 60

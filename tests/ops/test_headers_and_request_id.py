@@ -11,7 +11,7 @@ import re
 
 import pytest
 
-from tests.ops.conftest import make_app
+from .conftest import make_app
 
 EXPECTED = {
     "X-Content-Type-Options": "nosniff",

@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 import logging
 
-from tests.ops.conftest import make_app
+from .conftest import make_app
 
 
 def _strict(line: str):

@@ -59,3 +59,15 @@ def test_design_compute_histogram_observer(client):
     assert _value(after, name + "_sum") - _value(before, name + "_sum") >= 0.0015
     assert _value(after, name + "_bucket", le="0.0025") \
         - _value(before, name + "_bucket", le="0.0025") == 2
+
+
+def test_design_endpoint_feeds_the_compute_histogram(client):
+    # service/pipeline.py calls observe_design_seconds around the engine.
+    body = {"target": {"gain_db": 60, "f_low_hz": 2000, "f_high_hz": 200000},  # README
+            "supply": {"kind": "single", "v_pos": 5}, "opamp": "gc-cmos-rr-10m"}
+    before = _samples(client)
+    assert client.post("/v1/designs", json=body).status_code == 200
+    after = _samples(client)
+    name = "gainchain_design_compute_seconds"
+    assert _value(after, name + "_count") - _value(before, name + "_count") >= 1
+    assert _value(after, name + "_sum") > _value(before, name + "_sum")

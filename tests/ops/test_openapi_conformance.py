@@ -14,7 +14,7 @@ import re
 import pytest
 from openapi_schema_validator import OAS30Validator
 
-from tests.ops.conftest import make_app
+from .conftest import make_app
 
 README_EXAMPLE = {
     "name": "ultrasonic-rx-40k",

@@ -19,7 +19,7 @@ from schemathesis.specs.openapi.checks import (
     status_code_conformance,
 )
 
-from tests.ops.conftest import make_app
+from .conftest import make_app
 
 EXAMPLES_PER_OPERATION = 40
 CHECKS = [not_a_server_error, status_code_conformance, content_type_conformance,
