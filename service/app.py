@@ -14,7 +14,7 @@ from service.errors import register_error_handlers
 
 
 def create_app(config=None) -> Flask:
-    app = Flask(__name__)
+    app = Flask(__name__, static_folder=None)
     app.config.update(config_module.from_environment())
     if config:
         app.config.update(config)

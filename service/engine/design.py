@@ -61,6 +61,8 @@ BYPASS_GROWTH = 3.3
 BYPASS_ATTEMPTS = 5
 #: Stage 1's bias resistor is at least this multiple of the source impedance.
 SOURCE_LOAD_RATIO = 10.0
+#: A further gain pass must promise at least this improvement (natural log, ~0.001 dB).
+GAIN_PASS_MIN_IMPROVEMENT = 1.2e-4
 #: Gain-correction passes (each re-chooses the last stage's pair).
 GAIN_PASSES = 3
 
@@ -225,7 +227,9 @@ def synthesize(req: DesignRequest, n: int) -> Synthesis:
         new = choose_pairs(comp.resistor_series, target.gain, n, topo, comp.impedance_ohm, rs,
                            correction=result.gain / ideal_product, previous=pairs,
                            min_noise_gain=stable)
-        if new == pairs:
+        new_product = math.prod(_pair_gain(p, topo, rs, k) for k, p in enumerate(new))
+        predicted = abs(math.log(target.gain / (result.gain * new_product / ideal_product)))
+        if new == pairs or predicted >= abs(math.log(target.gain / result.gain)) - GAIN_PASS_MIN_IMPROVEMENT:
             break
         pairs = new
     if bias is not None and not bias.buffered:
