@@ -229,7 +229,8 @@ def synthesize(req: DesignRequest, n: int) -> Synthesis:
                            min_noise_gain=stable)
         new_product = math.prod(_pair_gain(p, topo, rs, k) for k, p in enumerate(new))
         predicted = abs(math.log(target.gain / (result.gain * new_product / ideal_product)))
-        if new == pairs or predicted >= abs(math.log(target.gain / result.gain)) - GAIN_PASS_MIN_IMPROVEMENT:
+        now = abs(math.log(target.gain / result.gain))
+        if new == pairs or predicted >= now - GAIN_PASS_MIN_IMPROVEMENT:
             break
         pairs = new
     if bias is not None and not bias.buffered:
