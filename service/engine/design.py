@@ -216,23 +216,27 @@ def synthesize(req: DesignRequest, n: int) -> Synthesis:
     pairs = choose_pairs(comp.resistor_series, target.gain, n, topo, comp.impedance_ohm, rs,
                          correction=_midband_estimate(req, pairs) / ideal_product,
                          min_noise_gain=stable)
-    circuit = None
-    result = None
+    tried: set = set()
+    best = None  # (gain error, pairs, circuit, result): the best pass is kept
     for _ in range(GAIN_PASSES):
+        tried.add(tuple(pairs))
         circuit = _with_low_side(req, pairs, bias) if ac else _dc_circuit(req, pairs)
         result = as_built(circuit, per_stage=False)
-        ideal_product = math.prod(_pair_gain(p, topo, rs, k) for k, p in enumerate(pairs))
-        if abs(math.log(target.gain / result.gain)) < 1e-5:
+        err = abs(math.log(target.gain / result.gain))
+        if best is None or err < best[0]:
+            best = (err, pairs, circuit, result)
+        if err < 1e-5:
             break
+        ideal_product = math.prod(_pair_gain(p, topo, rs, k) for k, p in enumerate(pairs))
         new = choose_pairs(comp.resistor_series, target.gain, n, topo, comp.impedance_ohm, rs,
                            correction=result.gain / ideal_product, previous=pairs,
                            min_noise_gain=stable)
         new_product = math.prod(_pair_gain(p, topo, rs, k) for k, p in enumerate(new))
         predicted = abs(math.log(target.gain / (result.gain * new_product / ideal_product)))
-        now = abs(math.log(target.gain / result.gain))
-        if new == pairs or predicted >= now - GAIN_PASS_MIN_IMPROVEMENT:
+        if tuple(new) in tried or predicted >= err - GAIN_PASS_MIN_IMPROVEMENT:
             break
         pairs = new
+    _, pairs, circuit, result = best
     if bias is not None and not bias.buffered:
         circuit, result, bias_reason = _settle_bias(req, pairs, circuit, result, bias_reason)
     return Synthesis(circuit=circuit, as_built=as_built(circuit), bias_reason=bias_reason)
