@@ -4,17 +4,22 @@ Steps for a stage count n (``synthesize``):
 
 1. **Gains.** Each stage aims at ``g = G**(1/n)``. Feedback pairs come from the resistor
    series, with the impedance-level resistor (``r_feedback_ohm`` non-inverting, ``r_in_ohm``
-   inverting) within a decade centred on ``impedance_ohm``; stages 1..n-1 take the pair
-   nearest ``g``, the last stage the pair nearest what the product still needs. The as-built
-   midband gain (source divider, finite A0 and all) is then measured on the nodal model
-   and the last pair re-chosen, so the *product* lands on the target.
+   inverting) within a decade centred on ``impedance_ohm`` and the stage's noise gain at or
+   above the op-amp's ``min_stable_gain``. Stages 1..n-2 take the pair nearest ``g``; the
+   last two search their pairs jointly for the product the cascade still needs (E96 ratios
+   are quantised in ~2.4 % steps, products of two far more finely). The losses (source
+   divider, finite A0) are predicted by one solve at the band centre before any capacitor
+   exists, then measured on the finished circuit; the pairs are re-chosen while that
+   promises a better product, and the best pass is kept.
 2. **Low corner.** The m high-pass poles (coupling ``(Rs+Rb) Cc`` or ``(Rs+Rin) Cc``,
    ground leg ``Rg Cg``, output ``RL Cout``) start equal at ``f_low sqrt(2**(1/m) - 1)``
    (the shrinkage rule of ``ideal``). A common scale factor sigma moves them all; for each
    sigma on a grid, capacitors are rounded *up* to the capacitor series and the bias
-   resistor is re-tuned from the resistor series to restore its pole. All sigmas are solved
-   at once; the largest sigma (smallest capacitors) whose as-built f_low meets the target
-   wins, verified on the full model.
+   resistor is re-tuned from the resistor series to restore its pole. All sigmas are
+   estimated in one solve; the largest sigma (smallest capacitors) is then sought whose
+   as-built f_low meets the target *and* whose response peaks inside the target band
+   (a pass band far wider than the target on the high side pulls the maximum up, and
+   larger capacitors pull it back), checked on the full model.
 3. **Bias** (single supply): a divider from the resistor series sets VMID at the centre of
    the output swing window; VMID is buffered by a spare op-amp unit when a package has one
    (and the part is unity-gain stable), else the divider is bypassed, the bypass grown until
@@ -63,7 +68,7 @@ BYPASS_ATTEMPTS = 5
 SOURCE_LOAD_RATIO = 10.0
 #: A further gain pass must promise at least this improvement (natural log, ~0.001 dB).
 GAIN_PASS_MIN_IMPROVEMENT = 1.2e-4
-#: Gain-correction passes (each re-chooses the last stage's pair).
+#: Gain passes at most (each sizes the low side and measures the product again).
 GAIN_PASSES = 3
 
 
