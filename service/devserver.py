@@ -3,13 +3,10 @@
 from __future__ import annotations
 
 import argparse
+import json
 import os
 
-EXAMPLE = """{"name": "ultrasonic-rx-40k",
- "target": {"gain_db": 60, "f_low_hz": 2000, "f_high_hz": 200000},
- "supply": {"kind": "single", "v_pos": 5},
- "signal": {"input_peak_v": 0.001, "source_impedance_ohm": 200, "load_ohm": 10000},
- "opamp": "gc-cmos-rr-10m"}"""
+from service.examples import README_EXAMPLE
 
 
 def main() -> None:
@@ -20,7 +17,7 @@ def main() -> None:
     from service import create_app
 
     app = create_app()
-    one_line = " ".join(EXAMPLE.split())
+    one_line = json.dumps(README_EXAMPLE)
     print(f"gainchain listening on http://{args.host}:{args.port}\nTry:\n"
           f"curl -s -X POST http://{args.host}:{args.port}/v1/designs "
           f"-H 'Content-Type: application/json' -d '{one_line}'\n", flush=True)

@@ -23,6 +23,8 @@ from apispec.ext.marshmallow import MarshmallowPlugin
 from marshmallow import Schema, fields
 from marshmallow.validate import Length
 
+from service.examples import README_EXAMPLE
+
 OPENAPI_VERSION = "3.0.3"
 PROBLEM_MEDIA = "application/problem+json"
 # The lead's problem schema when it exists, else ours (below), which describes
@@ -88,14 +90,6 @@ class Operation:
     request_example: dict | None = None  # a valid body (docs, client generators, the fuzzer)
 
 
-# The README's worked example (a 5 V single-supply 40 kHz receive chain, 60 dB, 2..200 kHz).
-README_EXAMPLE = {
-    "name": "ultrasonic-rx-40k",
-    "target": {"gain_db": 60, "f_low_hz": 2000, "f_high_hz": 200000},
-    "supply": {"kind": "single", "v_pos": 5},
-    "signal": {"input_peak_v": 0.001, "source_impedance_ohm": 200, "load_ohm": 10000},
-    "opamp": "gc-cmos-rr-10m",
-}
 
 _PLOT_BODY = {"anyOf": ["schemas.request:DesignRequestSchema",
                         "schemas.request:AnalysisRequestSchema"]}

@@ -12,14 +12,9 @@ import math
 import pytest
 
 from service.engine.catalog import BUILTIN_OPAMPS
+from service.examples import README_EXAMPLE
 
-README_REQUEST = {
-    "name": "ultrasonic-rx-40k",
-    "target": {"gain_db": 60, "f_low_hz": 2000, "f_high_hz": 200000},
-    "supply": {"kind": "single", "v_pos": 5},
-    "signal": {"input_peak_v": 0.001, "source_impedance_ohm": 200, "load_ohm": 10000},
-    "opamp": "gc-cmos-rr-10m",
-}
+README_REQUEST = README_EXAMPLE
 
 HAPPY = {
     "readme_single_noninv": README_REQUEST,

@@ -14,15 +14,9 @@ import re
 import pytest
 from openapi_schema_validator import OAS30Validator
 
-from .conftest import make_app
+from service.examples import README_EXAMPLE
 
-README_EXAMPLE = {
-    "name": "ultrasonic-rx-40k",
-    "target": {"gain_db": 60, "f_low_hz": 2000, "f_high_hz": 200000},
-    "supply": {"kind": "single", "v_pos": 5},
-    "signal": {"input_peak_v": 0.001, "source_impedance_ohm": 200, "load_ohm": 10000},
-    "opamp": "gc-cmos-rr-10m",
-}
+from .conftest import make_app
 
 
 @pytest.fixture(scope="module")
