@@ -6,6 +6,7 @@ model: topology, supply kind, buffered or shared bias, ground-leg capacitor, out
 
 from __future__ import annotations
 
+from service.engine.analysis import as_built
 from service.engine.model import Bias, Circuit, OpAmp, Stage, Supply
 
 #: A generic op-amp archetype (invented figures): 10 MHz GBW, 100 dB open-loop gain.
@@ -91,3 +92,8 @@ ALL = {
     "noninv_dual_dc": lambda: noninv_dual(dc=True),
     "inv_dual": lambda: inv_dual(),
 }
+
+
+def as_built_of(circuit: Circuit) -> dict:
+    """The circuit's as-built block, as the pipeline hands it to the analyses."""
+    return as_built(circuit, per_stage=False).to_dict()

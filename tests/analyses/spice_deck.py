@@ -16,24 +16,12 @@ from __future__ import annotations
 import math
 import os
 import re
-import shutil
 import subprocess
 import tempfile
 
-import pytest
+from ngspice_support import NGSPICE, require_ngspice  # noqa: F401 (re-exported)
 
 from service.engine.model import INVERTING, Circuit
-
-NGSPICE = shutil.which("ngspice")
-
-
-def require_ngspice() -> str:
-    """The ngspice path; skip when absent, but fail under CI=true."""
-    if NGSPICE is None:
-        if os.environ.get("CI") == "true":
-            pytest.fail("ngspice is required under CI=true (apt-get install ngspice)")
-        pytest.skip("ngspice not installed: SPICE cross-checks skipped locally")
-    return NGSPICE
 
 
 def _n(x: float) -> str:

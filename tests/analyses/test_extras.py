@@ -4,8 +4,7 @@ from __future__ import annotations
 
 import json
 
-from analyses.circuits import ALL
-from analyses.test_montecarlo import as_built_of
+from analyses.circuits import ALL, as_built_of
 from service.engine.extras import extra_blocks
 from service.jsonout import dumps
 

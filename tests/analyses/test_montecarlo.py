@@ -9,19 +9,10 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from analyses.circuits import ALL, noninv_single, one_stage_coupling
+from analyses.circuits import ALL, as_built_of, noninv_single, one_stage_coupling
 from service.engine import chain
 from service.engine import montecarlo as mc
-from service.engine.corners import find_band
 from service.engine.model import Target
-
-
-def as_built_of(circuit) -> dict:
-    band = find_band(lambda f: np.abs(chain.solve(circuit, f).vout), 1)
-    f_low = float(band.f_low_hz[0])
-    return {"gain": float(band.gain[0]), "gain_db": 20 * math.log10(band.gain[0]),
-            "f_low_hz": f_low if math.isfinite(f_low) else None,
-            "f_high_hz": float(band.f_high_hz[0])}
 
 
 @pytest.mark.parametrize("name", sorted(ALL))

@@ -9,17 +9,8 @@ import pytest
 import scipy.constants
 
 from analyses import spice_deck
-from analyses.circuits import ALL, inv_single, noninv_dual, noninv_single, opamp
+from analyses.circuits import ALL, as_built_of, inv_single, noninv_dual, noninv_single, opamp
 from service.engine import chain, noise
-from service.engine.corners import find_band
-
-
-def as_built_of(circuit) -> dict:
-    band = find_band(lambda f: np.abs(chain.solve(circuit, f).vout), 1)
-    f_low = float(band.f_low_hz[0])
-    return {"gain": float(band.gain[0]), "gain_db": 20 * math.log10(band.gain[0]),
-            "f_low_hz": f_low if math.isfinite(f_low) else None,
-            "f_high_hz": float(band.f_high_hz[0])}
 
 
 def test_boltzmann_constant_is_scipy_codata():

@@ -9,23 +9,11 @@ here (a missing value only warns, format brief sec. 5).
 from __future__ import annotations
 
 import os
-import shutil
 import subprocess
 import tempfile
 
 import numpy as np
-import pytest
-
-NGSPICE = shutil.which("ngspice")
-
-
-def require_ngspice() -> str:
-    """The ngspice path; skip when absent, but fail under CI=true (issue 3, Tests)."""
-    if NGSPICE is None:
-        if os.environ.get("CI") == "true":
-            pytest.fail("ngspice is required under CI=true (apt-get install ngspice)")
-        pytest.skip("ngspice not installed: SPICE cross-checks skipped locally")
-    return NGSPICE
+from ngspice_support import NGSPICE, require_ngspice  # noqa: F401 (re-exported)
 
 
 def run_deck(deck: str, timeout_s: float = 120.0) -> tuple[str, str]:

@@ -6,8 +6,8 @@ import os
 import subprocess
 import sys
 
+import ngspice_support
 import pytest
-import spice_run
 
 ROOT = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
@@ -23,10 +23,10 @@ def test_exporters_import_without_flask_or_test_readers():
 
 def test_missing_ngspice_skips_locally_but_fails_under_ci(monkeypatch):
     """Issue 3: without ngspice the SPICE checks skip, except under CI=true where they fail."""
-    monkeypatch.setattr(spice_run, "NGSPICE", None)
+    monkeypatch.setattr(ngspice_support, "NGSPICE", None)
     monkeypatch.delenv("CI", raising=False)
     with pytest.raises(pytest.skip.Exception):
-        spice_run.require_ngspice()
+        ngspice_support.require_ngspice()
     monkeypatch.setenv("CI", "true")
     with pytest.raises(pytest.fail.Exception):
-        spice_run.require_ngspice()
+        ngspice_support.require_ngspice()
