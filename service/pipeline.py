@@ -48,13 +48,11 @@ def load_design_request(body, catalog=None) -> tuple[DesignRequest, dict]:
                         name=data.get("name"))
     options = _options(data)
     if "tolerance" in options:
+        # The passive tolerances default to the request's components (issue 4).
         tol = dict(options["tolerance"])
-        tol.setdefault("resistor_tolerance_pct", req.components.resistor_tolerance_pct)
-        tol.setdefault("capacitor_tolerance_pct", req.components.capacitor_tolerance_pct)
-        if tol.get("resistor_tolerance_pct") is None:
-            tol["resistor_tolerance_pct"] = req.components.resistor_tolerance_pct
-        if tol.get("capacitor_tolerance_pct") is None:
-            tol["capacitor_tolerance_pct"] = req.components.capacitor_tolerance_pct
+        for key in ("resistor_tolerance_pct", "capacitor_tolerance_pct"):
+            if tol.get(key) is None:
+                tol[key] = getattr(req.components, key)
         options["tolerance"] = tol
     return req, options
 

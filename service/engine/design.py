@@ -524,17 +524,9 @@ def check_request(req: DesignRequest) -> None:
         raise EngineError("f_low_hz = 0 (DC coupling) needs a dual supply", field="target.f_low_hz")
 
 
-def stage_counts_to_try(req: DesignRequest) -> list[int]:
-    """Auto mode: stage counts in increasing order whose ideal f_high can reach the target
-    and whose stage noise gain the op-amp tolerates."""
-    out = []
-    for n in range(1, ideal.MAX_STAGES + 1):
-        ic = ideal.ideal_cascade(req.target.gain, req.target.f_low_hz or 1.0, req.opamp.gbw_hz,
-                                 n, req.topology)
-        stable = ideal.noise_gain(ic.stage_gain, req.topology) >= req.opamp.min_stable_gain
-        if stable and ic.f_high_hz >= 0.97 * req.target.f_high_hz:
-            out.append(n)
-    return out
+#: Auto mode skips stage counts whose *ideal* f_high is below this fraction of the target
+#: (E-series rounding moves the as-built figure by well under 3 %).
+IDEAL_REACH_FRACTION = 0.97
 
 
 def _stable(req: DesignRequest, n: int) -> bool:
@@ -543,15 +535,22 @@ def _stable(req: DesignRequest, n: int) -> bool:
     return ideal.noise_gain(g, req.topology) >= req.opamp.min_stable_gain
 
 
+def _ideal_f_high_hz(req: DesignRequest, n: int) -> float:
+    return ideal.ideal_cascade(req.target.gain, req.target.f_low_hz, req.opamp.gbw_hz, n,
+                               req.topology).f_high_hz
+
+
+def stage_counts_to_try(req: DesignRequest) -> list[int]:
+    """Auto mode: stage counts in increasing order whose ideal f_high can reach the target
+    and whose stage noise gain the op-amp tolerates."""
+    return [n for n in range(1, ideal.MAX_STAGES + 1) if _stable(req, n)
+            and _ideal_f_high_hz(req, n) >= IDEAL_REACH_FRACTION * req.target.f_high_hz]
+
+
 def best_reach(req: DesignRequest) -> int:
     """Stage count with the highest ideal f_high among the stable ones (1 if none)."""
-    best, best_f = 1, -1.0
-    for n in range(1, ideal.MAX_STAGES + 1):
-        ic = ideal.ideal_cascade(req.target.gain, 1.0, req.opamp.gbw_hz, n, req.topology)
-        stable = ideal.noise_gain(ic.stage_gain, req.topology) >= req.opamp.min_stable_gain
-        if stable and ic.f_high_hz > best_f:
-            best, best_f = n, ic.f_high_hz
-    return best
+    stable = [n for n in range(1, ideal.MAX_STAGES + 1) if _stable(req, n)]
+    return max(stable, key=lambda n: (_ideal_f_high_hz(req, n), -n), default=1)
 
 
 def _no_deadline(where: str | None = None) -> None:

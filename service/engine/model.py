@@ -148,10 +148,6 @@ class Circuit:
         return len(self.stages)
 
     @property
-    def single_supply(self) -> bool:
-        return self.supply.kind == SINGLE
-
-    @property
     def opamp_units(self) -> int:
         """Op-amp channels used: one per stage, plus the bias follower when buffered."""
         return self.n_stages + (1 if self.bias is not None and self.bias.buffered else 0)
