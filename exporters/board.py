@@ -1,10 +1,10 @@
 """A circuit turned into a complete board: every part, reference, footprint and net.
 
 All exporters draw from :func:`build_board`, so every format lists the same parts with the
-same references and the same connectivity. Pure: a :class:`~service.engine.model.Circuit`
+same references and the same connectivity. Pure: a :class:`~service.engine.model.circuit.Circuit`
 (plus options) in, a frozen :class:`Board` out.
 
-What the board adds to the circuit model (``service/engine/model.py``; the model's nodes in
+What the board adds to the circuit model (``service/engine/model/circuit.py``; the model's nodes in
 brackets):
 
 * references in signal order, per prefix: stage 1's parts first, then stage 2 ..., the output
@@ -38,7 +38,7 @@ import uuid
 from dataclasses import dataclass, field
 
 from exporters.values import eda_value, natural_key
-from service.engine.model import INVERTING, SINGLE, Circuit
+from service.engine.model.circuit import INVERTING, SINGLE, Circuit
 
 SIZES = ("0603", "0805", "1206")
 DEFAULT_SIZE = "0603"

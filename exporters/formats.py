@@ -18,7 +18,7 @@ from exporters.kicad_xml import kicad_xml
 from exporters.names import safe_filename
 from exporters.response import edges_from_report
 from exporters.spice import spice_deck
-from service.engine.model import Circuit
+from service.engine.model.circuit import Circuit
 
 #: kind -> Content-Type of the download.
 MIME_TYPES = {

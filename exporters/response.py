@@ -1,7 +1,7 @@
 """Frequency response of a circuit for the exports: band edges, analysis range, table.
 
-Everything comes from the engine's nodal solution (``service.engine.chain.solve``) and its
-corner finder (``service.engine.corners.find_band``); nothing here re-derives the model.
+Everything comes from the engine's nodal solution (``service.engine.solver.chain.solve``) and its
+corner finder (``service.engine.solver.corners.find_band``); nothing here re-derives the model.
 """
 
 from __future__ import annotations
@@ -11,9 +11,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from service.engine.chain import solve
-from service.engine.corners import find_band
-from service.engine.model import Circuit
+from service.engine.solver.chain import solve
+from service.engine.solver.corners import find_band
+from service.engine.model.circuit import Circuit
 
 #: Decades of a DC-coupled response shown below its high corner (no low corner exists).
 DC_COUPLED_DECADES_BELOW = 5

@@ -6,7 +6,7 @@ from marshmallow import Schema, ValidationError, fields, post_load, validates_sc
 from marshmallow.validate import Length, OneOf, Range
 
 from schemas.fields import OutFloat, StrictFloat, StrictInteger
-from service.engine.model import OpAmp
+from service.engine.model.circuit import OpAmp
 
 POSITIVE = Range(min=0, min_inclusive=False)
 NON_NEGATIVE = Range(min=0)

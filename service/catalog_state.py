@@ -16,8 +16,8 @@ from flask import Flask, current_app
 from marshmallow import ValidationError
 
 from schemas.opamp import OpAmpSchema
-from service.engine.catalog import BUILTIN_OPAMPS
-from service.engine.model import OpAmp
+from service.engine.model.catalog import BUILTIN_OPAMPS
+from service.engine.model.circuit import OpAmp
 
 EXTENSION_KEY = "gainchain_catalog"
 

@@ -13,9 +13,10 @@ import time
 from marshmallow import ValidationError
 
 from schemas.request import AnalysisRequestSchema, DesignRequestSchema
-from service.engine import design as design_mod
-from service.engine import extras, report
-from service.engine.model import Circuit, DesignRequest
+from service.engine.synthesis import design as design_mod
+from service.engine.judge import extras
+from service.engine import report
+from service.engine.model.circuit import Circuit, DesignRequest
 from service.errors import ApiProblem
 
 _DESIGN_SCHEMA = DesignRequestSchema()

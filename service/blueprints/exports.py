@@ -27,7 +27,7 @@ from marshmallow import ValidationError
 
 from exporters.board import SIZES
 from exporters.formats import KINDS, export
-from service.engine.model import Circuit
+from service.engine.model.circuit import Circuit
 from service.errors import ApiProblem, get_json_body
 
 bp = Blueprint("exports", __name__)

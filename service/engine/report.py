@@ -8,9 +8,10 @@ from __future__ import annotations
 
 import math
 
-from service.engine import analysis, ideal
-from service.engine.design import Design
-from service.engine.model import NON_INVERTING, Circuit, Target
+from service.engine.judge import analysis
+from service.engine.synthesis import ideal
+from service.engine.synthesis.design import Design
+from service.engine.model.circuit import NON_INVERTING, Circuit, Target
 
 CAUTIONS = (
     "gainchain is a design aid: build a prototype and measure it before relying on it.",

@@ -1,13 +1,13 @@
 """Hand-built circuits for the analyses tests (scenarios of our own, values invented).
 
-Each factory returns a :class:`service.engine.model.Circuit` covering one corner of the
+Each factory returns a :class:`service.engine.model.circuit.Circuit` covering one corner of the
 model: topology, supply kind, buffered or shared bias, ground-leg capacitor, output capacitor.
 """
 
 from __future__ import annotations
 
-from service.engine.analysis import as_built
-from service.engine.model import Bias, Circuit, OpAmp, Stage, Supply
+from service.engine.judge.analysis import as_built
+from service.engine.model.circuit import Bias, Circuit, OpAmp, Stage, Supply
 
 #: A generic op-amp archetype (invented figures): 10 MHz GBW, 100 dB open-loop gain.
 OPAMP = OpAmp(gbw_hz=10e6, slew_v_per_us=8.0, swing_to_pos_v=0.05, swing_to_neg_v=0.05,

@@ -21,7 +21,7 @@ import tempfile
 
 from ngspice_support import NGSPICE, require_ngspice  # noqa: F401 (re-exported)
 
-from service.engine.model import INVERTING, Circuit
+from service.engine.model.circuit import INVERTING, Circuit
 
 
 def _n(x: float) -> str:

@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 
 from analyses.circuits import ALL, as_built_of
-from service.engine.extras import extra_blocks
+from service.engine.judge.extras import extra_blocks
 from service.jsonout import dumps
 
 

@@ -10,7 +10,8 @@ import scipy.constants
 
 from analyses import spice_deck
 from analyses.circuits import ALL, as_built_of, inv_single, noninv_dual, noninv_single, opamp
-from service.engine import chain, noise
+from service.engine.solver import chain
+from service.engine.judge import noise
 
 
 def test_boltzmann_constant_is_scipy_codata():
@@ -137,7 +138,7 @@ def test_zero_source_impedance_is_an_ideal_source():
 
     circuit = replace(noninv_single(buffered=False), source_impedance_ohm=0.0)
     f = np.logspace(0, 6, 13)
-    from service.engine import mna
+    from service.engine.solver import mna
 
     np.testing.assert_allclose(mna.signal_gain(circuit, f), chain.solve(circuit, f).vout,
                                rtol=1e-9)

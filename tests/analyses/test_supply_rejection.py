@@ -7,7 +7,7 @@ import pytest
 
 from analyses import spice_deck
 from analyses.circuits import ALL, inv_single, noninv_single, opamp
-from service.engine import supply_rejection
+from service.engine.judge import supply_rejection
 
 SINGLE = sorted(k for k, make in ALL.items() if make().bias is not None)
 

@@ -11,7 +11,7 @@ import math
 
 import pytest
 
-from service.engine.catalog import BUILTIN_OPAMPS
+from service.engine.model.catalog import BUILTIN_OPAMPS
 from service.examples import README_EXAMPLE
 
 README_REQUEST = README_EXAMPLE

@@ -12,7 +12,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from service.engine.catalog import BUILTIN_OPAMPS
+from service.engine.model.catalog import BUILTIN_OPAMPS
 
 
 @pytest.fixture(scope="module")

@@ -108,7 +108,7 @@ def four_stage_circuit():
 
 @section("Monte Carlo: 4-stage design, 10,000 trials x 200 frequencies (goal < 100 ms)")
 def bench_montecarlo():
-    from service.engine import montecarlo as mc
+    from service.engine.judge import montecarlo as mc
 
     circuit, ab = four_stage_circuit()
     f_low = ab["f_low_hz"] if ab["f_low_hz"] is not None else math.nan
@@ -142,8 +142,8 @@ def bench_ngspice_ratio():
 
     from analyses import spice_deck
 
-    from service.engine import chain
-    from service.engine.corners import find_band
+    from service.engine.solver import chain
+    from service.engine.solver.corners import find_band
 
     exe = shutil.which("ngspice")
     if exe is None:
@@ -173,7 +173,8 @@ def bench_ngspice_ratio():
 
 @section("Noise and supply-rejection blocks (4-stage design)")
 def bench_noise():
-    from service.engine import noise, supply_rejection
+    from service.engine.judge import noise
+    from service.engine.judge import supply_rejection
 
     circuit, ab = four_stage_circuit()
     t = median_seconds(lambda: noise.noise_block(circuit, as_built=ab, input_peak_v=0.001), 20)

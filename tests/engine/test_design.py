@@ -1,4 +1,4 @@
-"""Synthesis (``service.engine.design``) checked on the circuits it returns.
+"""Synthesis (``service.engine.synthesis.design``) checked on the circuits it returns.
 
 References: the PyPI package ``eseries`` (IEC 60063 membership of every part value); the
 circuit model's own rule from issue 2 (response >= 3 dB below midband outside the as-built
@@ -15,11 +15,13 @@ import eseries as ref  # PyPI "eseries": independent IEC 60063 tables
 import numpy as np
 import pytest
 
-from service.engine import chain, design, ideal
-from service.engine.analysis import circuit_warnings
-from service.engine.catalog import BUILTIN_OPAMPS
+from service.engine.solver import chain
+from service.engine.synthesis import design
+from service.engine.synthesis import ideal
+from service.engine.judge.analysis import circuit_warnings
+from service.engine.model.catalog import BUILTIN_OPAMPS
 from service.engine.errors import EngineError
-from service.engine.model import (
+from service.engine.model.circuit import (
     INVERTING,
     NON_INVERTING,
     Components,

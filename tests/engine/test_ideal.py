@@ -1,4 +1,4 @@
-"""The textbook cascade formulas of ``service.engine.ideal`` against numerical references.
+"""The textbook cascade formulas of ``service.engine.synthesis.ideal`` against numerical references.
 
 References: scipy.signal.freqs (frequency response of an s-domain transfer function) and
 scipy.optimize.brentq (root bracketing) find the -3 dB points of n identical single-pole
@@ -14,8 +14,8 @@ import numpy as np
 import pytest
 from scipy import optimize, signal
 
-from service.engine import ideal
-from service.engine.model import INVERTING, NON_INVERTING
+from service.engine.synthesis import ideal
+from service.engine.model.circuit import INVERTING, NON_INVERTING
 
 HALF_POWER_DB = 20.0 * math.log10(1.0 / math.sqrt(2.0))
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import pytest
 from export_circuits import CIRCUITS
 
-from service.engine.model import Circuit
+from service.engine.model.circuit import Circuit
 
 
 @pytest.fixture(params=sorted(CIRCUITS))

@@ -7,7 +7,7 @@ DC coupling (every optional part null), and 1-, 2- and 4-channel packages.
 
 from __future__ import annotations
 
-from service.engine.model import Bias, Circuit, OpAmp, Stage, Supply
+from service.engine.model.circuit import Bias, Circuit, OpAmp, Stage, Supply
 
 HOSTILE_NAMES = [
     "=cmd|' /C calc'!A0",

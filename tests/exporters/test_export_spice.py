@@ -1,8 +1,8 @@
 """SPICE deck: ngspice (an independent simulator) reproduces the engine's numbers.
 
 References: ngspice 39 (Debian package) in batch mode, reading the deck exactly as exported;
-the engine's nodal solution ``service.engine.chain.solve`` and corner finder
-``service.engine.corners.find_band``. Deck rules from the format brief (eda-formats.md sec. 5).
+the engine's nodal solution ``service.engine.solver.chain.solve`` and corner finder
+``service.engine.solver.corners.find_band``. Deck rules from the format brief (eda-formats.md sec. 5).
 """
 
 from __future__ import annotations
@@ -17,7 +17,7 @@ from spice_run import band_from_table, parse_print_table, require_ngspice, run_d
 from exporters.board import build_board
 from exporters.response import band_edges
 from exporters.spice import spice_deck
-from service.engine.chain import solve
+from service.engine.solver.chain import solve
 
 pytestmark = pytest.mark.ngspice
 

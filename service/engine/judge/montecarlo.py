@@ -11,11 +11,11 @@ Models (the block names the one that ran): every part is an array of trials and 
 is evaluated exactly, on a log grid of ``frequency_points``
 frequencies from two decades below the nominal low corner to two decades above the nominal
 high corner; the maximum and the -3 dB crossings are then refined per trial exactly as for
-the as-built figures (:func:`service.engine.corners.find_band`). With a stiff REF (dual
+the as-built figures (:func:`service.engine.solver.corners.find_band`). With a stiff REF (dual
 supply or buffered VMID) the cascade is a product of per-stage transfer functions
 ("stage-product", :func:`stage_product_mag`, real arithmetic); with a shared divider the
 chain's nodal recursion runs in fraction-free form ("chain-fraction-free",
-:func:`shared_ref_mag`); "chain-nodal" (:func:`service.engine.chain.solve_params` itself)
+:func:`shared_ref_mag`); "chain-nodal" (:func:`service.engine.solver.chain.solve_params` itself)
 serves as their reference in the tests. When VMID is buffered the
 follower holds VMID at the divider's AC voltage, which the signal never reaches, so the
 divider, its bypass and the follower's gain-bandwidth do not affect ``Vout/Vs`` and are not
@@ -39,9 +39,9 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from service.engine.chain import TWO_PI, ChainParams, params_from_circuit, solve_params
-from service.engine.corners import F_MAX_HZ, find_band
-from service.engine.model import Circuit, Target
+from service.engine.solver.chain import TWO_PI, ChainParams, params_from_circuit, solve_params
+from service.engine.solver.corners import F_MAX_HZ, find_band
+from service.engine.model.circuit import Circuit, Target
 
 MAX_TRIALS = 100_000
 DEFAULT_FREQUENCY_POINTS = 200
@@ -263,7 +263,7 @@ def stage_product_mag(p: ChainParams, f_hz, factors: list | None = None) -> np.n
       + s^2 tau Cc (Rf+R'in))``; without Cc ``-A0 Rf / ((Rf+R'in+A0 R'in) + s tau (Rf+R'in))``;
     * output: ``s Co RL / (1 + s Co RL)``.
 
-    These follow from the stage equations of :mod:`service.engine.chain` by multiplying
+    These follow from the stage equations of :mod:`service.engine.solver.chain` by multiplying
     through by ``s C (1 + s tau)``. Each ``|H_k|^2`` is a ratio of real polynomials in
     ``w^2`` whose coefficients are computed once per trial; the grid then costs a few real
     Horner steps per stage, which is what makes this model fast.
@@ -299,7 +299,7 @@ RESCALE_EVERY = 3
 def shared_ref_mag(p: ChainParams, f_hz) -> np.ndarray:
     """``|Vout/Vs|`` of the chain with a shared (floating) REF, in fraction-free form.
 
-    The same affine recursion as :func:`service.engine.chain.solve_params` (every node
+    The same affine recursion as :func:`service.engine.solver.chain.solve_params` (every node
     ``a + b v_ref``, REF closed by KCL at VDIV: ``v_ref = inj_a / (y_div - inj_b)``), but
     every quantity is kept as a numerator over one common denominator ``Q`` that collects
     the stages' denominators, so no complex division is done per frequency (numpy's complex

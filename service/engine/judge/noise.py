@@ -8,7 +8,7 @@ Sources (all uncorrelated, so their power spectral densities add at the output):
 * every op-amp unit (the bias follower included): a voltage ``e_n`` (V/sqrt(Hz)) in series
   with its + input and a current ``i_n`` (A/sqrt(Hz)) into each input, uncorrelated.
 
-With the adjoint solution ``y`` (``M^T y = c``, see :mod:`service.engine.mna`) the output PSD
+With the adjoint solution ``y`` (``M^T y = c``, see :mod:`service.engine.solver.mna`) the output PSD
 of a current ``J`` between nodes a and b is ``|y_a - y_b|^2 S_J``, and of a voltage ``e`` in
 series with a unit's + input ``|y_row|^2 S_e``. One batched solve gives every contribution.
 
@@ -25,9 +25,9 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.integrate import simpson
 
-from service.engine.corners import F_MAX_HZ, F_MIN_HZ
-from service.engine.mna import GND, MnaSystem, build
-from service.engine.model import Circuit
+from service.engine.solver.corners import F_MAX_HZ, F_MIN_HZ
+from service.engine.solver.mna import GND, MnaSystem, build
+from service.engine.model.circuit import Circuit
 
 #: Boltzmann constant in J/K (exact by the 2019 SI definition; tests compare it with
 #: ``scipy.constants.k``).
@@ -45,7 +45,7 @@ class NoiseSpectrum:
     """Output noise PSD (V^2/Hz) at ``frequency_hz``: total and per group.
 
     Groups: ``"source"``, ``"stage1"`` .. ``"stageN"``, ``"load"``, ``"bias"`` (see
-    :func:`service.engine.mna.build`). ``by_source`` maps each resistor or op-amp noise
+    :func:`service.engine.solver.mna.build`). ``by_source`` maps each resistor or op-amp noise
     term (``"R_feedback1"``, ``"U1.en"``, ``"U1.in+"``) to its PSD.
     """
 

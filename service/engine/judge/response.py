@@ -1,6 +1,6 @@
 """Frequency-response curves of the cascade: gain and unwrapped phase of Vout/Vs and of each
 stage's cumulative output ``(V(O_k) - V(REF)) / Vs``, on a log-spaced grid with both ends
-included. Computed by the exact nodal solution (:func:`service.engine.chain.solve`).
+included. Computed by the exact nodal solution (:func:`service.engine.solver.chain.solve`).
 """
 
 from __future__ import annotations
@@ -9,8 +9,8 @@ import math
 
 import numpy as np
 
-from service.engine.chain import solve
-from service.engine.model import Circuit
+from service.engine.solver.chain import solve
+from service.engine.model.circuit import Circuit
 
 DEFAULT_POINTS = 200
 MAX_POINTS = 2000

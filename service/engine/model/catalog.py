@@ -8,7 +8,7 @@ and manufacturers only ever come from an organisation's approved-parts file
 
 from __future__ import annotations
 
-from service.engine.model import OpAmp
+from service.engine.model.circuit import OpAmp
 
 _NOTE = "Generic archetype, typical figures; not a real part."
 

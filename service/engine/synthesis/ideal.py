@@ -26,7 +26,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from service.engine.model import INVERTING
+from service.engine.model.circuit import INVERTING
 
 MAX_STAGES = 12
 

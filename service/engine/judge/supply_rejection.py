@@ -7,15 +7,15 @@ series with its + input (``OpAmp.psrr_db``; None = ideal). ``Vout`` is the volta
 the load, as in the circuit model; the signal source is off (``Vs = 0``).
 
 Computed with the MNA adjoint: ``Vout/Vcc = y^T b`` where ``b`` holds ``Vcc = 1`` and the
-PSRR terms (:meth:`service.engine.mna.MnaSystem.supply_rhs`). Negative dB = attenuation.
+PSRR terms (:meth:`service.engine.solver.mna.MnaSystem.supply_rhs`). Negative dB = attenuation.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-from service.engine.mna import build
-from service.engine.model import Circuit
+from service.engine.solver.mna import build
+from service.engine.model.circuit import Circuit
 
 #: Mains ripple and its full-wave rectified second harmonic, for 50 Hz and 60 Hz grids
 #: (common practice).

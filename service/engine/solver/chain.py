@@ -6,7 +6,7 @@ voltage of the shared reference node REF. Every node voltage is kept as an affin
 ``a + b * v_ref`` (source ``Vs = 1``); the current that the stages, the load and the bias
 divider push into REF then closes the system with one complex division per frequency.
 This is exact nodal analysis of the stated model, not an approximation; tests compare it
-with a general modified-nodal-analysis solve (``service.engine.mna``) and with per-stage
+with a general modified-nodal-analysis solve (``service.engine.solver.mna``) and with per-stage
 transfer functions multiplied in scipy.signal.
 
 Open-loop gain (single pole): ``A(s) = A0 / (1 + s A0 / (2 pi GBW))``; no input current,
@@ -30,7 +30,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from service.engine.model import INVERTING, Circuit
+from service.engine.model.circuit import INVERTING, Circuit
 
 TWO_PI = 2.0 * np.pi
 

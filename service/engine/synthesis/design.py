@@ -34,8 +34,11 @@ from functools import lru_cache
 
 import numpy as np
 
-from service.engine import chain, corners, eseries, ideal
-from service.engine.analysis import (
+from service.engine.solver import chain
+from service.engine.solver import corners
+from service.engine.synthesis import eseries
+from service.engine.synthesis import ideal
+from service.engine.judge.analysis import (
     AsBuilt,
     as_built,
     flat_outside_band,
@@ -43,7 +46,7 @@ from service.engine.analysis import (
     status_of,
 )
 from service.engine.errors import EngineError
-from service.engine.model import (
+from service.engine.model.circuit import (
     DUAL,
     INVERTING,
     NON_INVERTING,

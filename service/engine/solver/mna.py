@@ -1,6 +1,6 @@
 """General modified nodal analysis (MNA) of the circuit model, vectorised over frequency.
 
-Where :mod:`service.engine.chain` exploits the chain structure, this module stamps every
+Where :mod:`service.engine.solver.chain` exploits the chain structure, this module stamps every
 element of the model into one matrix and solves it, so it also handles what the chain does
 not: a source at VCC (supply ripple), current injections at any node (noise) and sources in
 series with op-amp inputs (voltage noise, PSRR). The two are independent constructions of
@@ -39,7 +39,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from service.engine.model import INVERTING, Circuit
+from service.engine.model.circuit import INVERTING, Circuit
 
 TWO_PI = 2.0 * np.pi
 GND = "GND"

@@ -22,8 +22,9 @@ from functools import lru_cache
 
 import numpy as np
 
-from service.engine import chain, corners
-from service.engine.model import INVERTING, NON_INVERTING, Circuit, Target
+from service.engine.solver import chain
+from service.engine.solver import corners
+from service.engine.model.circuit import INVERTING, NON_INVERTING, Circuit, Target
 
 #: Aluminium electrolytics are flagged above this value (the warning "large_electrolytic").
 LARGE_CAPACITOR_F = 100e-6

@@ -1,0 +1,1 @@
+"""Judging a circuit: as-built figures, build checks, noise, supply ripple, Monte Carlo, response curves."""

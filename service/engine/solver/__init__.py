@@ -1,0 +1,1 @@
+"""Solving the circuit: the chain solver, general modified nodal analysis and corner search."""

@@ -1,0 +1,1 @@
+"""Synthesising a circuit: E-series values, textbook cascade formulas and the design search."""
