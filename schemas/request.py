@@ -13,7 +13,7 @@ from schemas.fields import StrictBoolean, StrictFloat, StrictInteger
 from schemas.opamp import OpAmpField
 from service.engine.synthesis.eseries import CAPACITOR_SERIES, RESISTOR_SERIES
 from service.engine.synthesis.ideal import MAX_STAGES
-from service.engine.model.circuit import TOPOLOGIES, Components, Signal, Target
+from service.engine.model.circuit import TOPOLOGIES, Components, Limits, Signal, Target
 
 #: Agreement asked of ``gain`` and ``gain_db`` when both are given (relative, on the ratio).
 GAIN_AGREEMENT = 1e-6
@@ -58,15 +58,51 @@ class TargetSchema(Schema):
                                 gain_tolerance_db=data["gain_tolerance_db"])
 
 
+#: Request fields that set a limit, by the block they sit in (the response echoes them all
+#: in one ``limits`` block, which /v1/analyses accepts as it is).
+LIMIT_FIELDS = {
+    "supply": ("ripple_rejection_db", "max_current_a"),
+    "components": ("max_capacitor_f", "min_resistor_ohm", "max_resistor_ohm"),
+    "signal": ("max_startup_s", "min_input_impedance_ohm"),
+}
+_POSITIVE = Range(min=0, min_inclusive=False)
+
+
+class LimitsSchema(Schema):
+    """The ``limits`` block: echoed by every design, accepted by /v1/analyses."""
+
+    ripple_rejection_db = StrictFloat(load_default=20.0, validate=Range(min=-200, max=200))
+    max_capacitor_f = StrictFloat(load_default=220e-6, validate=Range(min=1e-15, max=10.0))
+    min_resistor_ohm = StrictFloat(load_default=10.0, validate=Range(min=0, max=1e12))
+    max_resistor_ohm = StrictFloat(load_default=1e6, validate=Range(min=1e-3, max=1e13))
+    max_startup_s = StrictFloat(load_default=None, allow_none=True, validate=_POSITIVE)
+    min_input_impedance_ohm = StrictFloat(load_default=None, allow_none=True,
+                                          validate=_POSITIVE)
+    max_current_a = StrictFloat(load_default=None, allow_none=True, validate=_POSITIVE)
+
+    @validates_schema
+    def _order(self, data, **kwargs):
+        lo, hi = data.get("min_resistor_ohm"), data.get("max_resistor_ohm")
+        if lo is not None and hi is not None and lo >= hi:
+            raise ValidationError(f"min_resistor_ohm ({lo:g}) must be below max_resistor_ohm "
+                                  f"({hi:g})", "min_resistor_ohm")
+
+    @post_load
+    def _make(self, data, **kwargs) -> Limits:
+        return Limits(**data)
+
+
 class SignalSchema(Schema):
     input_peak_v = StrictFloat(load_default=0.01, validate=Range(min=0, max=1000,
                                                                  min_inclusive=False))
     source_impedance_ohm = StrictFloat(load_default=50.0, validate=Range(min=0, max=1e9))
     load_ohm = StrictFloat(load_default=10_000.0, validate=Range(min=1, max=1e12))
+    max_startup_s = LimitsSchema._declared_fields["max_startup_s"]
+    min_input_impedance_ohm = LimitsSchema._declared_fields["min_input_impedance_ohm"]
 
     @post_load
     def _make(self, data, **kwargs) -> Signal:
-        return Signal(**data)
+        return _split(Signal, data, "signal")
 
 
 class ComponentsSchema(Schema):
@@ -75,10 +111,41 @@ class ComponentsSchema(Schema):
     resistor_tolerance_pct = StrictFloat(load_default=1.0, validate=Range(min=0, max=50))
     capacitor_tolerance_pct = StrictFloat(load_default=10.0, validate=Range(min=0, max=80))
     impedance_ohm = StrictFloat(load_default=10_000.0, validate=Range(min=10, max=1e7))
+    max_capacitor_f = LimitsSchema._declared_fields["max_capacitor_f"]
+    min_resistor_ohm = LimitsSchema._declared_fields["min_resistor_ohm"]
+    max_resistor_ohm = LimitsSchema._declared_fields["max_resistor_ohm"]
 
     @post_load
     def _make(self, data, **kwargs) -> Components:
-        return Components(**data)
+        return _split(Components, data, "components")
+
+
+class RequestSupplySchema(SupplySchema):
+    """The request's supply: the rails plus the limits that belong to the supply."""
+
+    ripple_rejection_db = LimitsSchema._declared_fields["ripple_rejection_db"]
+    max_current_a = LimitsSchema._declared_fields["max_current_a"]
+
+    @post_load
+    def _make(self, data, **kwargs):
+        supply = super()._make({k: v for k, v in data.items()
+                                if k not in LIMIT_FIELDS["supply"]}, **kwargs)
+        return supply, {k: data[k] for k in LIMIT_FIELDS["supply"] if k in data}
+
+
+def _split(cls, data: dict, block: str):
+    """``(cls(non-limit fields), {limit fields given})`` of one request block."""
+    limits = {k: data[k] for k in LIMIT_FIELDS[block] if k in data}
+    return cls(**{k: v for k, v in data.items() if k not in limits}), limits
+
+
+def limits_of(data: dict) -> Limits:
+    """The request's ``Limits``: the limit fields of supply, components and signal (loaded
+    as ``(value, limits)`` pairs by their schemas); defaults fill the rest."""
+    given = {}
+    for block in LIMIT_FIELDS:
+        given.update(data[block][1])
+    return Limits(**given)
 
 
 class StagesField(fields.Field):
@@ -99,12 +166,12 @@ class StagesField(fields.Field):
 class DesignRequestSchema(Schema):
     name = fields.String(validate=Length(max=80), allow_none=True)
     target = fields.Nested(TargetSchema, required=True)
-    supply = fields.Nested(SupplySchema, required=True)
-    signal = fields.Nested(SignalSchema, load_default=lambda: Signal())
+    supply = fields.Nested(RequestSupplySchema, required=True)
+    signal = fields.Nested(SignalSchema, load_default=lambda: (Signal(), {}))
     opamp = OpAmpField(required=True)
     topology = fields.String(load_default="non_inverting", validate=OneOf(TOPOLOGIES))
     stages = StagesField(load_default=None)
-    components = fields.Nested(ComponentsSchema, load_default=lambda: Components())
+    components = fields.Nested(ComponentsSchema, load_default=lambda: (Components(), {}))
     strict = StrictBoolean(load_default=False)
     tolerance = fields.Nested(ToleranceOptionsSchema)
     response = fields.Nested(ResponseOptionsSchema)
@@ -126,10 +193,12 @@ class AnalysisRequestSchema(Schema):
     input_peak_v = StrictFloat(load_default=0.01, validate=Range(min=0, max=1000,
                                                                  min_inclusive=False))
     target = fields.Nested(TargetSchema, allow_none=True, load_default=None)
+    limits = fields.Nested(LimitsSchema, load_default=lambda: Limits())
     tolerance = fields.Nested(AnalysisToleranceSchema)
     response = fields.Nested(ResponseOptionsSchema)
     temperature_k = StrictFloat(load_default=300.0, validate=Range(min=1, max=1000))
     supply_rejection_hz = StrictFloat(validate=F_RANGE)
 
 
-__all__ = ["DesignRequestSchema", "AnalysisRequestSchema", "TargetSchema", "StrictInteger"]
+__all__ = ["DesignRequestSchema", "AnalysisRequestSchema", "TargetSchema", "StrictInteger",
+           "LimitsSchema", "limits_of"]

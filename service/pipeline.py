@@ -12,7 +12,7 @@ import time
 
 from marshmallow import ValidationError
 
-from schemas.request import AnalysisRequestSchema, DesignRequestSchema
+from schemas.request import AnalysisRequestSchema, DesignRequestSchema, limits_of
 from service.engine.synthesis import design as design_mod
 from service.engine.judge import extras
 from service.engine import report
@@ -43,10 +43,10 @@ def load_design_request(body, catalog=None) -> tuple[DesignRequest, dict]:
             raise ValidationError({"opamp": [f"Unknown catalog id {opamp!r}; GET /v1/opamps "
                                              "lists the catalog."]})
         opamp = found
-    req = DesignRequest(target=data["target"], supply=data["supply"], opamp=opamp,
-                        signal=data["signal"], topology=data["topology"], stages=data["stages"],
-                        components=data["components"], strict=data["strict"],
-                        name=data.get("name"))
+    req = DesignRequest(target=data["target"], supply=data["supply"][0], opamp=opamp,
+                        signal=data["signal"][0], topology=data["topology"],
+                        stages=data["stages"], components=data["components"][0],
+                        strict=data["strict"], name=data.get("name"), limits=limits_of(data))
     options = _options(data)
     if "tolerance" in options:
         # The passive tolerances default to the request's components (issue 4).

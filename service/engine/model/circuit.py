@@ -224,6 +224,28 @@ class Components:
 
 
 @dataclass(frozen=True)
+class Limits:
+    """The limits a circuit is judged by (the response's ``limits`` block).
+
+    Defaults (common practice): supply ripple attenuated by at least 20 dB; no capacitor
+    above 220 uF (beyond it electrolytics grow large, leaky and slow to charge); resistors
+    from 10 ohm (below it the op-amp drives a near short) to 1 Mohm (above it leakage, bias
+    currents and stray capacitance take over). ``None`` = figure reported without a limit.
+    """
+
+    ripple_rejection_db: float = 20.0
+    max_capacitor_f: float = 220e-6
+    min_resistor_ohm: float = 10.0
+    max_resistor_ohm: float = 1e6
+    max_startup_s: float | None = None
+    min_input_impedance_ohm: float | None = None
+    max_current_a: float | None = None
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+@dataclass(frozen=True)
 class Signal:
     input_peak_v: float = 0.01
     source_impedance_ohm: float = 50.0
@@ -243,3 +265,4 @@ class DesignRequest:
     components: Components = field(default_factory=Components)
     strict: bool = False
     name: str | None = None
+    limits: Limits = field(default_factory=Limits)
