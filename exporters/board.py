@@ -11,8 +11,10 @@ brackets):
   capacitor, the bias network, then the decoupling and bulk capacitors; op-amp units packed
   in signal order into packages of ``channels_per_package`` (U1 unit A, B, ..., the buffered
   bias follower takes the next unit after the last stage);
-* unused units wired as followers of REF (+in on REF, -in tied to the output; common
-  practice, it keeps spare amplifiers from oscillating or railing);
+* unused units tied to REF (common practice: it keeps spare amplifiers from oscillating or
+  railing): followers (+in on REF, -in tied to the output) for a unity-gain-stable part,
+  non-inverting amplifiers of REF with two resistors for a part stable only at a higher
+  noise gain (values from :mod:`service.engine.model.spares`);
 * one 100 nF decoupling capacitor per supply pin per package (common practice), and one bulk
   capacitor per rail (``BULK_C_F``, common practice: 10-100 uF at the supply entry);
 * connectors: J1 input (1 IN, 2 GND), J2 output (1 OUT, 2 the load's return: GND, or VMID
@@ -39,6 +41,7 @@ from dataclasses import dataclass, field
 
 from exporters.values import eda_value, natural_key
 from service.engine.model.circuit import INVERTING, SINGLE, Circuit
+from service.engine.model.spares import spare_units
 
 SIZES = ("0603", "0805", "1206")
 DEFAULT_SIZE = "0603"
@@ -300,13 +303,21 @@ def build_board(circuit: Circuit, *, name: str = "", size: str = DEFAULT_SIZE,
     packages = -(-len(roles) // channels)
     letters = list(PINOUTS[channels]["units"])
     unit_specs = []
+    spares = {s.index: s for s in spare_units(circuit)}
     for i in range(packages * channels):
         ref, letter = f"U{i // channels + 1}", letters[i % channels]
         if i < len(roles):
             role, inp, inn, out = roles[i]
-        else:
+        elif spares[i].r_feedback_ohm is None:
             spare = f"SPARE_{ref}{letter if channels > 1 else ''}"
             role, inp, inn, out = "unused (follower of REF)", ref_node, spare, spare
+        else:  # a decompensated part: a non-inverting amplifier of REF (model/spares.py)
+            name = f"{ref}{letter if channels > 1 else ''}"
+            out, inn = f"SPARE_{name}", f"SPARE_{name}_N"
+            role, inp = f"unused (amplifier of REF, gain {spares[i].noise_gain:.3g})", ref_node
+            passives.append(("R", f"spare {name} feedback", spares[i].r_feedback_ohm,
+                             (out, inn)))
+            passives.append(("R", f"spare {name} gain", spares[i].r_gain_ohm, (inn, ref_node)))
         unit_specs.append((ref, letter, role, inp, inn, out))
 
     rails = [("VCC", "vpos")] + ([] if single else [("VEE", "vneg")])

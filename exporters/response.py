@@ -11,9 +11,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from service.engine.model.circuit import Circuit
 from service.engine.solver.chain import solve
 from service.engine.solver.corners import find_band
-from service.engine.model.circuit import Circuit
 
 #: Decades of a DC-coupled response shown below its high corner (no low corner exists).
 DC_COUPLED_DECADES_BELOW = 5

@@ -7,7 +7,16 @@ from marshmallow.validate import Length, OneOf, Range
 
 from schemas.fields import OutFloat, StrictBoolean, StrictFloat
 from schemas.opamp import OpAmpOutSchema, OpAmpSchema
-from service.engine.model.circuit import DUAL, SINGLE, STAGE_KEYS, TOPOLOGIES, Bias, Circuit, Stage, Supply
+from service.engine.model.circuit import (
+    DUAL,
+    SINGLE,
+    STAGE_KEYS,
+    TOPOLOGIES,
+    Bias,
+    Circuit,
+    Stage,
+    Supply,
+)
 
 #: Component values a circuit may carry (wide on purpose: a hand-edited circuit is analysed
 #: as given; absurd values are refused).

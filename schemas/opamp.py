@@ -38,6 +38,8 @@ class OpAmpSchema(Schema):
     channels_per_package = StrictInteger(load_default=1, validate=OneOf([1, 2, 4]))
     min_stable_gain = StrictFloat(load_default=1.0, validate=Range(min=1.0, max=1e4))
     psrr_db = StrictFloat(load_default=None, allow_none=True, validate=Range(min=0, max=300))
+    output_current_max_a = StrictFloat(load_default=None, allow_none=True,
+                                       validate=Range(min=0, max=100, min_inclusive=False))
 
     @validates_schema
     def _supply_range(self, data, **kwargs):
@@ -73,6 +75,7 @@ class OpAmpOutSchema(Schema):
     channels_per_package = fields.Integer()
     min_stable_gain = fields.Float()
     psrr_db = OutFloat()
+    output_current_max_a = OutFloat()
 
 
 class OpAmpListSchema(Schema):

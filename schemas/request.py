@@ -11,9 +11,9 @@ from schemas.circuit import CircuitSchema, SupplySchema
 from schemas.extras import ResponseOptionsSchema, ToleranceOptionsSchema
 from schemas.fields import StrictBoolean, StrictFloat, StrictInteger
 from schemas.opamp import OpAmpField
-from service.engine.synthesis.eseries import CAPACITOR_SERIES, RESISTOR_SERIES
-from service.engine.synthesis.ideal import MAX_STAGES
 from service.engine.model.circuit import TOPOLOGIES, Components, Limits, Signal, Target
+from service.engine.model.eseries import CAPACITOR_SERIES, RESISTOR_SERIES
+from service.engine.synthesis.ideal import MAX_STAGES
 
 #: Agreement asked of ``gain`` and ``gain_db`` when both are given (relative, on the ratio).
 GAIN_AGREEMENT = 1e-6

@@ -33,10 +33,39 @@ class TargetOutSchema(Schema):
 
 
 class ShortfallSchema(Schema):
-    quantity = fields.String(metadata={"description": "f_low_hz, f_high_hz, gain_db or "
-                                                      "noise_gain"})
-    target = OutFloat()
+    quantity = fields.String(metadata={"description": "f_low_hz, f_high_hz, gain_db, or the "
+                                                      "name of a failed check"})
+    stage = fields.Integer(allow_none=True, metadata={"description": "1-based stage of a "
+                                                                     "per-stage check"})
+    target = OutFloat(metadata={"description": "the target figure or the check's limit"})
     achieved = OutFloat()
+
+
+class CheckSchema(Schema):
+    """One build check (README "Build checks")."""
+
+    check = fields.String(metadata={"enum": [
+        "output_swing", "input_common_mode", "slew_rate", "stability", "supply_ripple",
+        "part_values", "output_current", "startup_time", "input_impedance", "supply_current"]})
+    stage = fields.Integer(allow_none=True)
+    value = OutFloat()
+    limit = OutFloat()
+    unit = fields.String(metadata={"enum": ["V", "V/us", "dB", "F", "ohm", "A", "s", ""]})
+    passed = fields.Boolean(allow_none=True, metadata={
+        "description": "null for a figure reported without a limit"})
+    detail = fields.String()
+
+
+class LimitsOutSchema(Schema):
+    """The limits a design was judged by (accepted as they are by /v1/analyses)."""
+
+    ripple_rejection_db = OutFloat()
+    max_capacitor_f = OutFloat()
+    min_resistor_ohm = OutFloat()
+    max_resistor_ohm = OutFloat()
+    max_startup_s = OutFloat()
+    min_input_impedance_ohm = OutFloat()
+    max_current_a = OutFloat()
 
 
 class WarningSchema(Schema):
@@ -67,6 +96,7 @@ class AsBuiltSchema(Schema):
     f_low_hz = OutFloat(metadata={"description": "null when DC coupled"})
     f_high_hz = OutFloat()
     bandwidth_hz = OutFloat()
+    peak_hz = OutFloat(metadata={"description": "frequency of the response maximum"})
     inverting = fields.Boolean()
     stages = fields.List(fields.Nested(StageFiguresSchema))
 
@@ -83,7 +113,10 @@ class AnalysisPerformanceSchema(Schema):
 class StageHeadroomSchema(Schema):
     stage = fields.Integer()
     output_dc_v = OutFloat()
-    offset_worst_v = OutFloat()
+    dc_error_v = OutFloat(metadata={"description": "worst-case DC error at the output from "
+                                                   "vos_v and ib_a"})
+    offset_worst_v = OutFloat(metadata={"description": "same as dc_error_v (kept for "
+                                                       "existing callers)"})
     swing_window_v = _pair()
     output_peak_v = OutFloat()
     available_peak_v = OutFloat()
@@ -164,6 +197,8 @@ class DesignResponseSchema(_AnalysesBlocks):
     circuit = fields.Nested(CircuitOutSchema)
     performance = fields.Nested(PerformanceSchema)
     headroom = fields.Nested(HeadroomSchema)
+    checks = fields.List(fields.Nested(CheckSchema))
+    limits = fields.Nested(LimitsOutSchema)
     bias = fields.Nested(BiasReportSchema)
     tradeoff = fields.Nested(TradeoffSchema)
     warnings = fields.List(fields.Nested(WarningSchema))
@@ -176,6 +211,8 @@ class AnalysisResponseSchema(_AnalysesBlocks):
     shortfalls = fields.List(fields.Nested(ShortfallSchema))
     performance = fields.Nested(AnalysisPerformanceSchema)
     headroom = fields.Nested(HeadroomSchema)
+    checks = fields.List(fields.Nested(CheckSchema))
+    limits = fields.Nested(LimitsOutSchema)
     bias = fields.Nested(BiasReportSchema)
     warnings = fields.List(fields.Nested(WarningSchema))
     cautions = fields.List(fields.String())

@@ -13,10 +13,10 @@ import time
 from marshmallow import ValidationError
 
 from schemas.request import AnalysisRequestSchema, DesignRequestSchema, limits_of
-from service.engine.synthesis import design as design_mod
-from service.engine.judge import extras
 from service.engine import report
+from service.engine.judge import extras
 from service.engine.model.circuit import Circuit, DesignRequest
+from service.engine.synthesis import design as design_mod
 from service.errors import ApiProblem
 
 _DESIGN_SCHEMA = DesignRequestSchema()
@@ -46,7 +46,8 @@ def load_design_request(body, catalog=None) -> tuple[DesignRequest, dict]:
     req = DesignRequest(target=data["target"], supply=data["supply"][0], opamp=opamp,
                         signal=data["signal"][0], topology=data["topology"],
                         stages=data["stages"], components=data["components"][0],
-                        strict=data["strict"], name=data.get("name"), limits=limits_of(data))
+                        strict=data["strict"], name=data.get("name"), limits=limits_of(data),
+                        supply_rejection_hz=data.get("supply_rejection_hz"))
     options = _options(data)
     if "tolerance" in options:
         # The passive tolerances default to the request's components (issue 4).
@@ -92,12 +93,13 @@ def run_design(body, catalog=None) -> dict:
     check = _deadline()
     result = design_mod.design(req, check_deadline=check)
     if req.strict and result.status != "meets_target":
-        best = design_mod.best_design(req, check_deadline=check)
-        best_body = _design_body(best, options)
+        # The design is already the best one for the request: with a fixed ``stages``, that
+        # count; in auto mode the best of the stage counts tried (design.best_of).
+        best_body = _design_body(result, options)
         raise ApiProblem(
             422, "Target not met",
-            "No cascade of this op-amp meets the target; 'best_design' holds the stage count "
-            "with the highest as-built f_high.",
+            "No cascade of this op-amp meets the target and passes every build check; "
+            "'best_design' holds the best design found.",
             type_="target-not-met", shortfalls=best_body["shortfalls"], best_design=best_body)
     out = _design_body(result, options)
     _observe(time.perf_counter() - started)
@@ -122,7 +124,9 @@ def run_analysis(body) -> dict:
     circuit: Circuit = data["circuit"]
     target = data.get("target")
     out = {"name": data.get("name")}
-    out.update(report.analysis_block(circuit, target=target, input_peak_v=data["input_peak_v"]))
+    out.update(report.analysis_block(circuit, target=target, input_peak_v=data["input_peak_v"],
+                                     limits=data["limits"],
+                                     supply_rejection_hz=data.get("supply_rejection_hz")))
     options = _options(data)
     out.update(extras.extra_blocks(circuit, target=target, input_peak_v=data["input_peak_v"],
                                    as_built=out["performance"]["as_built"], options=options,

@@ -8,10 +8,10 @@ from __future__ import annotations
 
 import math
 
-from service.engine.judge import analysis
+from service.engine.judge import analysis, verdict
+from service.engine.model.circuit import NON_INVERTING, Circuit, Limits, Target
 from service.engine.synthesis import ideal
 from service.engine.synthesis.design import Design
-from service.engine.model.circuit import NON_INVERTING, Circuit, Target
 
 CAUTIONS = (
     "gainchain is a design aid: build a prototype and measure it before relying on it.",
@@ -64,31 +64,56 @@ def _warn(code: str, message: str) -> dict:
 
 
 def analysis_block(circuit: Circuit, *, target: Target | None, input_peak_v: float,
-                   bias_reason: str | None = None, ab: analysis.AsBuilt | None = None) -> dict:
-    """as_built, headroom, bias, warnings (and status/shortfalls given a target)."""
+                   limits: Limits, supply_rejection_hz: float | None = None,
+                   bias_reason: str | None = None, ab: analysis.AsBuilt | None = None,
+                   judgement: verdict.Judgement | None = None) -> dict:
+    """as_built, headroom, checks, limits, bias, warnings (and status/shortfalls given a
+    target). ``judgement`` is the synthesis' own verdict when there is one; an analysis
+    judges the circuit here, by the same function."""
     ab = ab or analysis.as_built(circuit)
-    hr = analysis.headroom(circuit, ab, input_peak_v, target.f_high_hz if target else None)
+    judgement = judgement or verdict.judge(circuit, ab, target=target, input_peak_v=input_peak_v,
+                                           limits=limits,
+                                           supply_rejection_hz=supply_rejection_hz)
+    checks = list(judgement.checks)
+    hr = analysis.headroom(circuit, checks, input_peak_v)
     warnings = [_warn(c, m) for c, m in analysis.circuit_warnings(circuit) + hr.warnings]
     if not analysis.flat_outside_band(ab, None):
         warnings.append(_warn("response_outside_band",
                               f"The response rises to {ab.outside_max_db:.2f} dB of midband "
                               "outside its -3 dB band (peaking, e.g. from a weak bias bypass)."))
+    if target is not None and ab.f_high_hz > WIDE_BAND_RATIO * target.f_high_hz:
+        warnings.append(_warn("wide_band",
+                              f"The as-built f_high {ab.f_high_hz:.4g} Hz is more than "
+                              f"{WIDE_BAND_RATIO:g}x the target {target.f_high_hz:.4g} Hz: the "
+                              "extra bandwidth adds noise and passes interference."))
     out = {
         "performance": {"as_built": ab.to_dict()},
         "headroom": {"stages": hr.stages, "overall": hr.overall},
+        "checks": [c.to_dict() for c in checks],
+        "limits": limits.to_dict(),
         "bias": bias_block(circuit, bias_reason),
         "warnings": warnings,
         "cautions": list(CAUTIONS),
     }
     if target is not None:
-        status, shortfalls = analysis.status_of(ab, target, circuit)
-        out["status"] = status
-        out["shortfalls"] = shortfalls
-        if status != "meets_target":
+        out["status"] = judgement.status
+        out["shortfalls"] = [dict(s) for s in judgement.shortfalls]
+        if judgement.status != "meets_target":
             warnings.append(_warn("target_not_met", "The as-built circuit misses the target: "
-                                  + "; ".join(f"{s['quantity']} {s['achieved']:.6g} vs "
-                                              f"{s['target']:.6g}" for s in shortfalls)))
+                                  + "; ".join(_shortfall_text(s) for s in judgement.shortfalls)))
     return out
+
+
+#: Above this multiple of the target f_high the as-built band is flagged as wasted noise
+#: bandwidth (issue 9's rule of thumb; common practice is to limit the band to the signal).
+WIDE_BAND_RATIO = 4.0
+
+
+def _shortfall_text(s: dict) -> str:
+    where = "" if s.get("stage") is None else f" (stage {s['stage']})"
+    achieved = "none" if s["achieved"] is None else f"{s['achieved']:.6g}"
+    limit = "none" if s["target"] is None else f"{s['target']:.6g}"
+    return f"{s['quantity']}{where} {achieved} vs {limit}"
 
 
 def tradeoff_block(design: Design) -> dict:
@@ -141,7 +166,9 @@ def design_block(design: Design) -> dict:
     syn = design.synthesis
     circuit = syn.circuit
     body = analysis_block(circuit, target=req.target, input_peak_v=req.signal.input_peak_v,
-                          bias_reason=syn.bias_reason, ab=syn.as_built)
+                          limits=req.limits, supply_rejection_hz=req.supply_rejection_hz,
+                          bias_reason=syn.bias_reason, ab=syn.as_built,
+                          judgement=design.judgement)
     return {
         "name": req.name,
         "status": body.pop("status"),
@@ -153,6 +180,8 @@ def design_block(design: Design) -> dict:
         "performance": {"ideal": design.ideal.to_dict(),
                         "as_built": body["performance"]["as_built"]},
         "headroom": body["headroom"],
+        "checks": body["checks"],
+        "limits": body["limits"],
         "bias": body["bias"],
         "tradeoff": tradeoff_block(design),
         "warnings": body["warnings"],

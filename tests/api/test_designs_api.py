@@ -22,7 +22,9 @@ HAPPY = {
                              target={"gain": 316.2, "f_low_hz": 50, "f_high_hz": 50000}),
     "dual_noninv": dict(README_REQUEST, name="strain-bridge", opamp="gc-bjt-lownoise-8m",
                         supply={"kind": "dual", "v_pos": 12, "v_neg": -12},
-                        target={"gain_db": 66, "f_low_hz": 1, "f_high_hz": 20000}),
+                        target={"gain_db": 66, "f_low_hz": 1, "f_high_hz": 20000},
+                        # a 1 Hz corner at the 10 kohm level needs a 1.5 mF ground leg
+                        components={"impedance_ohm": 100_000}),
     "dual_inverting_dc": dict(README_REQUEST, name="dc-servo", topology="inverting",
                               opamp="gc-jfet-4m",
                               supply={"kind": "dual", "v_pos": 15, "v_neg": -15},

@@ -12,7 +12,7 @@ import eseries as ref  # PyPI "eseries": independent IEC 60063 tables
 import numpy as np
 import pytest
 
-from service.engine.synthesis import eseries
+from service.engine.model import eseries
 
 REF_SERIES = {"E6": ref.E6, "E12": ref.E12, "E24": ref.E24, "E48": ref.E48, "E96": ref.E96,
               "E192": ref.E192}

@@ -41,10 +41,24 @@ def test_packing_and_spare_units(circuit):
     assert len(board.units) == len(packages) * channels
     spares = [u for u in board.units if u.role.startswith("unused")]
     assert len(spares) == len(board.units) - circuit.opamp_units
-    for u in spares:  # follower of REF: +in on REF, -in tied to the output, nothing else
-        assert u.inp == board.ref_net and u.inn == u.out
-        assert set(board.nets[u.out]) == {(u.ref, pin.number) for pin in board.part(u.ref).pins
-                                          if pin.net == u.out}
+    for u in spares:
+        own_pins = {(u.ref, pin.number) for pin in board.part(u.ref).pins if pin.net == u.out}
+        assert u.inp == board.ref_net
+        if circuit.opamp.min_stable_gain <= 1.0:
+            # follower of REF: +in on REF, -in tied to the output, nothing else
+            assert u.inn == u.out and set(board.nets[u.out]) == own_pins
+            continue
+        # a part stable only at a higher noise gain: a non-inverting amplifier of REF,
+        # Rf from the output to -in and Rg from -in to REF; noise gain 1 + Rf/Rg
+        # (common practice) at least min_stable_gain
+        resistors = {p.ref: p for p in board.parts if p.prefix == "R"}
+        out_refs = {ref for ref, _ in board.nets[u.out] if ref in resistors}
+        inn_refs = {ref for ref, _ in board.nets[u.inn] if ref in resistors}
+        (rf,) = out_refs & inn_refs
+        (rg,) = inn_refs - out_refs
+        assert board.ref_net in {pin.net for pin in resistors[rg].pins}
+        gain = 1 + resistors[rf].value_si / resistors[rg].value_si
+        assert gain >= circuit.opamp.min_stable_gain
     letters = [u.unit for u in board.units]
     assert letters == list("ABCD"[:channels]) * len(packages)
     stage_units = [u for u in board.units if u.role.startswith("stage")]

@@ -1,1 +1,2 @@
-"""Judging a circuit: as-built figures, build checks, noise, supply ripple, Monte Carlo, response curves."""
+"""Judging a circuit: as-built figures, build checks and verdict, noise, supply ripple,
+Monte Carlo and response curves."""

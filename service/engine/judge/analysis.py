@@ -21,10 +21,10 @@ from dataclasses import dataclass, field
 from functools import lru_cache
 
 import numpy as np
+from scipy.optimize import brentq
 
-from service.engine.solver import chain
-from service.engine.solver import corners
-from service.engine.model.circuit import INVERTING, NON_INVERTING, Circuit, Target
+from service.engine.model.circuit import NON_INVERTING, Circuit, Target
+from service.engine.solver import chain, corners
 
 #: Aluminium electrolytics are flagged above this value (the warning "large_electrolytic").
 LARGE_CAPACITOR_F = 100e-6
@@ -57,6 +57,7 @@ class AsBuilt:
             "f_low_hz": _none_if_nan(self.f_low_hz),
             "f_high_hz": _none_if_nan(self.f_high_hz),
             "bandwidth_hz": self.bandwidth_hz,
+            "peak_hz": self.peak_hz,
             "inverting": self.inverting,
             "stages": [dict(s) for s in self.stages],
         }
@@ -80,28 +81,18 @@ def _as_built_cached(circuit: Circuit, per_stage: bool) -> AsBuilt:
 def compute_as_built(circuit: Circuit, *, per_stage: bool = True) -> AsBuilt:
     """Midband gain, corners and per-stage figures of the circuit (see module docstring).
 
-    ``per_stage=False`` skips the per-stage corners (their entries are then empty), for
-    the synthesis loop that only needs the overall figures.
+    Per-stage figures are measured in place at the cascade's peak frequency: the gain is
+    ``|V(O_k)/V(X_k)|`` there and the corners are the frequencies nearest it where that
+    ratio is 3 dB below its value at the peak (:func:`stage_band`). ``per_stage=False``
+    skips them (their entries are then empty), for the synthesis loop that only needs the
+    overall figures.
     """
-    n = circuit.n_stages if per_stage else 0
-
-    def evaluate(f):
-        sol = chain.solve(circuit, f)
-        rows = [np.abs(sol.vout[0])]
-        for k in range(n):
-            rows.append(np.abs(sol.stage_out_abs[k][k + 1] / sol.stage_in[k][k + 1]))
-        return np.stack(rows)
-
-    band = corners.find_band(evaluate, n + 1)
+    band = corners.find_band(lambda f: np.abs(chain.solve(circuit, f).vout), 1)
     peak_hz = float(band.peak_hz[0])
     sol = chain.solve(circuit, np.array([peak_hz]))
     inverted = bool(np.real(sol.vout[0]) < 0)
-    stages = [
-        {"gain": float(band.gain[k + 1]),
-         "f_low_hz": _none_if_nan(float(band.f_low_hz[k + 1])),
-         "f_high_hz": _none_if_nan(float(band.f_high_hz[k + 1]))}
-        for k in range(n)
-    ]
+    stages = [stage_band(circuit, k, peak_hz) for k in range(circuit.n_stages)] \
+        if per_stage else []
     stage_peak = [float(np.abs(sol.stage_out[k][0])) for k in range(circuit.n_stages)]
     if circuit.topology == NON_INVERTING:
         pos = []
@@ -123,6 +114,38 @@ def compute_as_built(circuit: Circuit, *, per_stage: bool = True) -> AsBuilt:
         peak_hz=peak_hz, inverting=inverted, outside_max_db=float(band.outside_max_db[0]),
         stages=stages, stage_peak_v_per_v=stage_peak, stage_pos_in_v_per_v=pos,
     )
+
+
+def stage_band(circuit: Circuit, k: int, peak_hz: float) -> dict:
+    """Stage k's in-place figures at the cascade's peak frequency.
+
+    ``gain = |V(O_k)/V(X_k)|`` at ``peak_hz``; ``f_low_hz``/``f_high_hz`` = the frequencies
+    nearest ``peak_hz`` below and above it where the ratio is 3 dB below its value at
+    ``peak_hz`` (None when it stays above within 1 mHz..10 GHz). The crossings are
+    bracketed on the corner grid and refined by Brent's method on the log ratio.
+    """
+    def ratio(f):
+        sol = chain.solve(circuit, np.atleast_1d(f))
+        return np.abs(sol.stage_out_abs[k] / sol.stage_in[k])
+
+    level = float(ratio(peak_hz)[0]) * corners.HALF_POWER
+    grid = corners.GRID_HZ
+
+    def crossing(side):
+        f = grid[grid < peak_hz][::-1] if side < 0 else grid[grid > peak_hz]
+        if f.size == 0:
+            return None
+        r = ratio(f)
+        below = np.nonzero(r < level)[0]
+        if below.size == 0:
+            return None
+        j = below[0]
+        near = peak_hz if j == 0 else f[j - 1]
+        g = lambda lf: float(np.log(ratio(np.exp(lf))[0] / level))  # noqa: E731
+        return float(np.exp(brentq(g, math.log(near), math.log(f[j]), xtol=1e-12)))
+
+    return {"gain": level / corners.HALF_POWER, "f_low_hz": crossing(-1),
+            "f_high_hz": crossing(+1)}
 
 
 def flat_outside_band(ab: AsBuilt, target: Target | None = None,
@@ -175,28 +198,6 @@ def cm_window_v(circuit: Circuit) -> tuple[float, float]:
     return (circuit.supply.v_neg + op.cm_to_neg_v, circuit.supply.v_pos - op.cm_to_pos_v)
 
 
-def _dc_noise_gain(circuit: Circuit, k: int) -> float:
-    """DC gain from an input offset of stage k to its output (common practice).
-
-    AC-coupled stages: 1 (the ground-leg or input capacitor blocks DC). DC-coupled:
-    ``1 + Rf/Rg`` (non-inverting) or ``1 + Rf/Rin`` (inverting).
-    """
-    st = circuit.stages[k]
-    if circuit.topology == NON_INVERTING:
-        return 1.0 if st.c_gain_f is not None else 1.0 + st.r_feedback_ohm / st.r_gain_ohm
-    return 1.0 if st.c_couple_f is not None else 1.0 + st.r_feedback_ohm / st.r_in_ohm
-
-
-def _dc_signal_gain(circuit: Circuit, k: int) -> float:
-    """DC gain of stage k for a DC error arriving at its input (0 when AC coupled)."""
-    st = circuit.stages[k]
-    if st.c_couple_f is not None:
-        return 0.0
-    if circuit.topology == NON_INVERTING:
-        return _dc_noise_gain(circuit, k)
-    return st.r_feedback_ohm / st.r_in_ohm
-
-
 @dataclass
 class Headroom:
     stages: list
@@ -204,72 +205,64 @@ class Headroom:
     warnings: list = field(default_factory=list)
 
 
-def headroom(circuit: Circuit, ab: AsBuilt, input_peak_v: float,
-             f_high_target_hz: float | None) -> Headroom:
-    """Per-stage and overall swing, slew and common-mode checks (module docstring)."""
+def headroom(circuit: Circuit, checks: list, input_peak_v: float) -> Headroom:
+    """Per-stage swing, slew and common-mode figures, read off the build checks
+    (:mod:`service.engine.judge.checks`) so the two never disagree.
+
+    * available peak = the room to the nearer swing limit less the worst-case DC error;
+    * swing headroom ``20 log10(available / AC peak)``; the largest input before clipping
+      scales the stated input by ``available / AC peak``;
+    * full-power bandwidth at the available swing: ``SR / (2 pi V_available)`` (common
+      practice).
+    """
     op = circuit.opamp
-    ref = vmid_v(circuit)
+    by = {}
+    for c in checks:
+        if c.stage is not None:
+            by[(c.check, c.stage)] = c
     lo, hi = swing_window_v(circuit)
     cm_lo, cm_hi = cm_window_v(circuit)
-    f_slew = f_high_target_hz if f_high_target_hz else ab.f_high_hz
     slew_v_per_s = op.slew_v_per_us * 1e6
-    offset = 0.0
-    rows = []
-    warnings = []
-    for k in range(circuit.n_stages):
-        offset = offset * _dc_signal_gain(circuit, k) + abs(op.vos_v) * _dc_noise_gain(circuit, k)
-        available = max(0.0, min(hi - ref, ref - lo) - offset)
-        peak = input_peak_v * ab.stage_peak_v_per_v[k]
-        headroom_db = 20.0 * math.log10(available / peak) if available > 0 else -math.inf
-        required_slew = 2.0 * math.pi * f_slew * peak / 1e6
-        fpbw = slew_v_per_s / (2.0 * math.pi * available) if available > 0 else math.inf
-        max_in = input_peak_v * available / peak if peak > 0 else math.inf
-        if circuit.topology == NON_INVERTING:
-            cm_swing = input_peak_v * ab.stage_pos_in_v_per_v[k]
-        else:
-            cm_swing = 0.0
-        cm_min, cm_max = ref - cm_swing, ref + cm_swing
-        cm_ok = cm_lo <= cm_min and cm_max <= cm_hi
+    rows, warnings = [], []
+    for k in range(1, circuit.n_stages + 1):
+        swing, cm, slew = by[("output_swing", k)], by[("input_common_mode", k)], \
+            by[("slew_rate", k)]
+        dc_v, dc_error = swing.extra["dc_v"], swing.extra["dc_error_v"]
+        peak = swing.value - dc_error
+        available = max(0.0, swing.limit - dc_error)
+        headroom_db = 20.0 * math.log10(available / peak) if available > 0 and peak > 0 \
+            else (math.inf if peak <= 0 else -math.inf)
+        plus_dc, plus_err = cm.extra["dc_v"], cm.extra["dc_error_v"]
+        cm_peak = cm.value
         row = {
-            "stage": k + 1,
-            "output_dc_v": ref,
-            "offset_worst_v": offset,
+            "stage": k,
+            "output_dc_v": dc_v,
+            "dc_error_v": dc_error,
+            "offset_worst_v": dc_error,
             "swing_window_v": [lo, hi],
             "output_peak_v": peak,
             "available_peak_v": available,
             "swing_headroom_db": headroom_db,
-            "max_input_peak_v": max_in,
-            "required_slew_v_per_us": required_slew,
+            "max_input_peak_v": input_peak_v * available / peak if peak > 0 else math.inf,
+            "required_slew_v_per_us": slew.value,
             "opamp_slew_v_per_us": op.slew_v_per_us,
-            "slew_ok": required_slew <= op.slew_v_per_us,
-            "full_power_bandwidth_hz": fpbw,
-            "input_cm_v": [cm_min, cm_max],
+            "slew_ok": bool(slew.passed),
+            "full_power_bandwidth_hz": (slew_v_per_s / (2.0 * math.pi * available)
+                                        if available > 0 else math.inf),
+            "input_cm_v": [plus_dc - cm_peak, plus_dc + cm_peak],
             "cm_window_v": [cm_lo, cm_hi],
-            "cm_ok": cm_ok,
+            "cm_ok": bool(cm.passed),
         }
+        del plus_err
         rows.append(row)
-        if not row["slew_ok"]:
-            warnings.append(("slew_limited",
-                             f"Stage {k + 1} needs {required_slew:.3g} V/us at "
-                             f"{f_slew:.4g} Hz for a {peak:.3g} V peak; the op-amp gives "
-                             f"{op.slew_v_per_us:.3g} V/us."))
-        if headroom_db < 0:
-            warnings.append(("clipping",
-                             f"Stage {k + 1} would need a {peak:.3g} V peak but only "
-                             f"{available:.3g} V is available: it clips above "
-                             f"{max_in:.3g} V peak at the input."))
-        elif headroom_db < LOW_HEADROOM_DB:
+        if swing.passed and 0 <= headroom_db < LOW_HEADROOM_DB:
             warnings.append(("low_headroom",
-                             f"Stage {k + 1} has {headroom_db:.2f} dB of swing headroom "
+                             f"Stage {k} has {headroom_db:.2f} dB of swing headroom "
                              f"(under {LOW_HEADROOM_DB:g} dB)."))
-        if not cm_ok:
-            warnings.append(("common_mode_violation",
-                             f"Stage {k + 1} input common mode spans {cm_min:.3g}..{cm_max:.3g} V"
-                             f" but the op-amp accepts {cm_lo:.3g}..{cm_hi:.3g} V."))
-        if offset > 0.1 * max(hi - lo, 1e-12):
+        if dc_error > 0.1 * max(hi - lo, 1e-12):
             warnings.append(("dc_offset",
-                             f"Stage {k + 1} output may sit up to {offset:.3g} V off its DC "
-                             f"level from accumulated input offset."))
+                             f"Stage {k} output may sit up to {dc_error:.3g} V off its DC "
+                             "level from input offset voltage and bias currents."))
     limiting = min(rows, key=lambda r: r["swing_headroom_db"])
     overall = {
         "min_swing_headroom_db": limiting["swing_headroom_db"],
@@ -282,62 +275,42 @@ def headroom(circuit: Circuit, ab: AsBuilt, input_peak_v: float,
     return Headroom(stages=rows, overall=overall, warnings=warnings)
 
 
-def status_of(ab: AsBuilt, target: Target, circuit: Circuit | None = None) -> tuple[str, list]:
-    """``meets_target`` when f_low <= target, f_high >= target and the gain is in
-    tolerance, and (given the circuit) every op-amp unit runs at a noise gain it is stable
-    at: a circuit that may oscillate does not meet any target (shortfall ``noise_gain``)."""
+def target_shortfalls(ab: AsBuilt, target: Target) -> list:
+    """The target figures the as-built circuit misses: f_low above the target, f_high
+    below it, the gain outside ``gain_tolerance_db``."""
     shortfalls = []
     f_low = 0.0 if math.isnan(ab.f_low_hz) else ab.f_low_hz
     if f_low > target.f_low_hz:
-        shortfalls.append({"quantity": "f_low_hz", "target": target.f_low_hz, "achieved": f_low})
+        shortfalls.append({"quantity": "f_low_hz", "stage": None, "target": target.f_low_hz,
+                           "achieved": f_low})
     if not ab.f_high_hz >= target.f_high_hz:
-        shortfalls.append({"quantity": "f_high_hz", "target": target.f_high_hz,
-                           "achieved": ab.f_high_hz})
+        shortfalls.append({"quantity": "f_high_hz", "stage": None,
+                           "target": target.f_high_hz, "achieved": ab.f_high_hz})
     if abs(ab.gain_db - target.gain_db) > target.gain_tolerance_db:
-        shortfalls.append({"quantity": "gain_db", "target": target.gain_db,
+        shortfalls.append({"quantity": "gain_db", "stage": None, "target": target.gain_db,
                            "achieved": ab.gain_db})
-    if circuit is not None:
-        lowest = min(unit_noise_gains(circuit))
-        if lowest < circuit.opamp.min_stable_gain:
-            shortfalls.append({"quantity": "noise_gain", "target": circuit.opamp.min_stable_gain,
-                               "achieved": lowest})
+    return shortfalls
+
+
+def verdict(ab: AsBuilt, target: Target, checks: list) -> tuple[str, list]:
+    """``meets_target`` iff the as-built circuit meets the target and every check with a
+    limit passes; the shortfalls list the missed target figures, then the failed checks."""
+    shortfalls = target_shortfalls(ab, target) + [c.shortfall() for c in checks
+                                                   if c.passed is False]
     return ("meets_target" if not shortfalls else "target_not_met"), shortfalls
 
 
-def unit_noise_gains(circuit: Circuit) -> list[float]:
-    """Midband noise gain ``1/beta`` of every op-amp unit: ``1 + Rf/Rg`` (non-inverting),
-    ``1 + Rf/(Rin + Rs)`` (inverting; the source impedance counts in front of stage 1
-    only), 1 for the VMID follower."""
-    gains = []
-    for k, st in enumerate(circuit.stages):
-        if circuit.topology == INVERTING:
-            front = circuit.source_impedance_ohm if k == 0 else 0.0
-            gains.append(1.0 + st.r_feedback_ohm / (st.r_in_ohm + front))
-        else:
-            gains.append(1.0 + st.r_feedback_ohm / st.r_gain_ohm)
-    if circuit.bias is not None and circuit.bias.buffered:
-        gains.append(1.0)
-    return gains
-
-
 def circuit_warnings(circuit: Circuit) -> list:
-    """Warnings that follow from the parts alone (stability, electrolytic sizes)."""
+    """Warnings that follow from the parts alone (electrolytic sizes, noise data)."""
     out = []
     op = circuit.opamp
-    for k, ng in enumerate(unit_noise_gains(circuit)[:circuit.n_stages]):
-        if ng < op.min_stable_gain:
-            out.append(("below_min_stable_gain",
-                        f"Stage {k + 1} runs at a noise gain of {ng:.3g}, below the op-amp's "
-                        f"minimum stable gain of {op.min_stable_gain:g}: it may oscillate."))
-    if circuit.bias is not None and circuit.bias.buffered and op.min_stable_gain > 1.0:
-        out.append(("below_min_stable_gain",
-                    "The VMID follower runs at unity gain, below the op-amp's minimum stable "
-                    f"gain of {op.min_stable_gain:g}: it may oscillate."))
-    big = [c for c in _capacitors(circuit) if c >= LARGE_CAPACITOR_F]
+    big = sorted((c for c in _capacitors(circuit) if c >= LARGE_CAPACITOR_F), reverse=True)
     if big:
+        values = ", ".join(f"{c * 1e6:.4g} uF" for c in big)
         out.append(("large_electrolytic",
-                    f"{len(big)} capacitor(s) of {max(big) * 1e6:.3g} uF or more: aluminium "
-                    "electrolytics with polarity, voltage rating, leakage and size to check."))
+                    f"{len(big)} capacitor(s) of {LARGE_CAPACITOR_F * 1e6:.4g} uF or more "
+                    f"({values}): aluminium electrolytics with polarity, voltage rating, "
+                    "leakage and size to check."))
     if op.en_v_per_rthz == 0.0 and op.in_a_per_rthz == 0.0:
         out.append(("opamp_noise_unspecified",
                     "The op-amp has no noise densities: noise figures count resistors only."))

@@ -4,7 +4,8 @@
 JSON-ready blocks, whose keys go at the top level of the response:
 
 * ``noise`` (always; :mod:`service.engine.judge.noise`);
-* ``supply_rejection`` (always; null on a dual supply; :mod:`service.engine.judge.supply_rejection`);
+* ``supply_rejection`` (always; null on a dual supply;
+  :mod:`service.engine.judge.supply_rejection`);
 * ``tolerance`` when ``options["tolerance"]`` is given (:mod:`service.engine.judge.montecarlo`);
 * ``response`` when ``options["response"]`` is given (:mod:`service.engine.judge.response`).
 
@@ -16,11 +17,11 @@ Non-finite numbers may remain; the JSON layer writes them as null.
 
 from __future__ import annotations
 
-from service.engine.model.circuit import Circuit, Target
 from service.engine.judge.montecarlo import tolerance_block
 from service.engine.judge.noise import DEFAULT_TEMPERATURE_K, noise_block
 from service.engine.judge.response import DEFAULT_POINTS, response_block
 from service.engine.judge.supply_rejection import supply_rejection_block
+from service.engine.model.circuit import Circuit, Target
 
 
 def extra_blocks(circuit: Circuit, *, target: Target | None, input_peak_v: float | None,

@@ -39,9 +39,9 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
+from service.engine.model.circuit import Circuit, Target
 from service.engine.solver.chain import TWO_PI, ChainParams, params_from_circuit, solve_params
 from service.engine.solver.corners import F_MAX_HZ, find_band
-from service.engine.model.circuit import Circuit, Target
 
 MAX_TRIALS = 100_000
 DEFAULT_FREQUENCY_POINTS = 200

@@ -25,9 +25,9 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.integrate import simpson
 
+from service.engine.model.circuit import Circuit
 from service.engine.solver.corners import F_MAX_HZ, F_MIN_HZ
 from service.engine.solver.mna import GND, MnaSystem, build
-from service.engine.model.circuit import Circuit
 
 #: Boltzmann constant in J/K (exact by the 2019 SI definition; tests compare it with
 #: ``scipy.constants.k``).

@@ -9,8 +9,8 @@ import math
 
 import numpy as np
 
-from service.engine.solver.chain import solve
 from service.engine.model.circuit import Circuit
+from service.engine.solver.chain import solve
 
 DEFAULT_POINTS = 200
 MAX_POINTS = 2000

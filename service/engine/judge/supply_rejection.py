@@ -14,12 +14,20 @@ from __future__ import annotations
 
 import numpy as np
 
-from service.engine.solver.mna import build
 from service.engine.model.circuit import Circuit
+from service.engine.solver.mna import build
 
 #: Mains ripple and its full-wave rectified second harmonic, for 50 Hz and 60 Hz grids
 #: (common practice).
 RIPPLE_FREQUENCIES_HZ = (50.0, 60.0, 100.0, 120.0)
+
+
+def ripple_frequencies(extra_hz: float | None) -> tuple[float, ...]:
+    """The supply-rejection frequencies: the mains set plus ``extra_hz`` when given."""
+    freqs = list(RIPPLE_FREQUENCIES_HZ)
+    if extra_hz is not None and extra_hz not in freqs:
+        freqs.append(float(extra_hz))
+    return tuple(freqs)
 
 
 def supply_gain(circuit: Circuit, f_hz) -> np.ndarray:
@@ -34,9 +42,7 @@ def supply_rejection_block(circuit: Circuit, *, extra_hz: float | None = None) -
     """The response's ``supply_rejection`` block, or None on a dual supply."""
     if circuit.bias is None:
         return None
-    freqs = list(RIPPLE_FREQUENCIES_HZ)
-    if extra_hz is not None and extra_hz not in freqs:
-        freqs.append(float(extra_hz))
+    freqs = list(ripple_frequencies(extra_hz))
     h = np.abs(supply_gain(circuit, freqs))
     with np.errstate(divide="ignore"):
         gain_db = 20.0 * np.log10(h)

@@ -40,7 +40,8 @@ class OpAmp:
     Defaults for the optional fields: ``a0_db`` 100, common-mode margins 0 (the input may
     reach each rail), noise densities, bias current, offset and quiescent current 0 (not
     modelled), one channel per package, minimum stable gain 1 (unity-gain stable),
-    ``psrr_db`` None (ideal: the supply does not reach the signal path).
+    ``psrr_db`` None (ideal: the supply does not reach the signal path),
+    ``output_current_max_a`` None (not checked).
     """
 
     gbw_hz: float
@@ -64,6 +65,7 @@ class OpAmp:
     channels_per_package: int = 1
     min_stable_gain: float = 1.0
     psrr_db: float | None = None
+    output_current_max_a: float | None = None
 
     @property
     def a0(self) -> float:
@@ -266,3 +268,5 @@ class DesignRequest:
     strict: bool = False
     name: str | None = None
     limits: Limits = field(default_factory=Limits)
+    #: An extra supply-ripple frequency (Hz) judged besides the mains set.
+    supply_rejection_hz: float | None = None

@@ -320,3 +320,35 @@ def node_voltages(circuit: Circuit, f_hz, nodes) -> dict:
     system = build(circuit)
     x = system.solve(f_hz, system.signal_rhs())
     return {n: system.voltage(x, n) for n in nodes}
+
+
+@dataclass(frozen=True)
+class StageNodes:
+    """MNA node names of one stage: its input X_k, the op-amp's + and - inputs and output."""
+
+    inp: str
+    plus: str
+    minus: str
+    out: str
+
+
+def reference_node(circuit: Circuit) -> str:
+    """The MNA name of REF: GND (dual supply), VMID (buffered) or VDIV (unbuffered)."""
+    if circuit.bias is None:
+        return GND
+    return "VMID" if circuit.bias.buffered else "VDIV"
+
+
+def stage_nodes(circuit: Circuit) -> list[StageNodes]:
+    """Node names of every stage, as :func:`build` names them (null parts join nodes)."""
+    ref = reference_node(circuit)
+    x = "X1" if circuit.source_impedance_ohm > 0 else "VS"
+    out = []
+    for k, st in enumerate(circuit.stages, start=1):
+        if circuit.topology == INVERTING:
+            plus = ref
+        else:
+            plus = x if st.c_couple_f is None else f"P{k}"
+        out.append(StageNodes(inp=x, plus=plus, minus=f"N{k}", out=f"O{k}"))
+        x = f"O{k}"
+    return out

@@ -34,18 +34,17 @@ from functools import lru_cache
 
 import numpy as np
 
-from service.engine.solver import chain
-from service.engine.solver import corners
-from service.engine.synthesis import eseries
-from service.engine.synthesis import ideal
+from service.engine.errors import EngineError
+from service.engine.judge import checks
 from service.engine.judge.analysis import (
     AsBuilt,
     as_built,
     flat_outside_band,
     peak_deficit_db,
-    status_of,
 )
-from service.engine.errors import EngineError
+from service.engine.judge.supply_rejection import ripple_frequencies
+from service.engine.judge.verdict import Judgement, judge
+from service.engine.model import eseries
 from service.engine.model.circuit import (
     DUAL,
     INVERTING,
@@ -55,6 +54,8 @@ from service.engine.model.circuit import (
     DesignRequest,
     Stage,
 )
+from service.engine.solver import chain, corners
+from service.engine.synthesis import ideal
 
 TWO_PI = 2.0 * math.pi
 #: Scale factors tried for the low-side poles (sigma), log-spaced; 6 % apart, finer than
@@ -208,24 +209,51 @@ def _midrail_target_v(req: DesignRequest) -> float:
 
 
 def synthesize(req: DesignRequest, n: int) -> Synthesis:
-    """The complete circuit for ``n`` stages (deterministic: a pure function of its inputs)."""
+    """The complete circuit for ``n`` stages (deterministic: a pure function of its inputs).
+
+    The gain passes run against the bias network they will be built with: when settling
+    the bias (flatness, supply ripple) changes it, the passes run again on the new one.
+    """
+    comp = req.components
+    topo = req.topology
+    rs = req.signal.source_impedance_ohm
+    pairs = choose_pairs(comp.resistor_series, req.target.gain, n, topo, comp.impedance_ohm,
+                         rs, min_noise_gain=req.opamp.min_stable_gain)
+    bias, bias_reason = _initial_bias(req, n)
+    # One cheap solve predicts the losses (source divider, finite A0) before any capacitor
+    # is sized, so the gain passes usually settle in one.
+    ideal_product = math.prod(_pair_gain(p, topo, rs, k) for k, p in enumerate(pairs))
+    pairs = choose_pairs(comp.resistor_series, req.target.gain, n, topo, comp.impedance_ohm,
+                         rs, correction=_midband_estimate(req, pairs) / ideal_product,
+                         min_noise_gain=req.opamp.min_stable_gain)
+    pairs, circuit, result = _gain_passes(req, pairs, bias)
+    for _ in range(BIAS_ROUNDS):
+        if bias is None:
+            break
+        settled, reason = _settle_bias(req, pairs, bias)
+        if settled == bias:
+            break
+        bias, bias_reason = settled, reason
+        pairs, circuit, result = _gain_passes(req, pairs, bias)
+    return Synthesis(circuit=circuit, as_built=as_built(circuit), bias_reason=bias_reason)
+
+
+#: Rounds of (settle the bias, redo the gain passes on it); the second rarely changes more.
+BIAS_ROUNDS = 2
+
+
+def _gain_passes(req: DesignRequest, pairs, bias):
+    """Size the low side for ``pairs`` on ``bias``, measure the gain product on the full
+    model and re-choose the last pairs while that promises a better product; the best pass
+    is kept. Returns ``(pairs, circuit, as_built)``."""
     comp = req.components
     topo = req.topology
     target = req.target
     rs = req.signal.source_impedance_ohm
     ac = target.f_low_hz > 0
-    stable = req.opamp.min_stable_gain
-    pairs = choose_pairs(comp.resistor_series, target.gain, n, topo, comp.impedance_ohm, rs,
-                         min_noise_gain=stable)
-    bias, bias_reason = _initial_bias(req, n)
-    # One cheap solve predicts the losses (source divider, finite A0) before any capacitor
-    # is sized, so the loop below usually settles in one pass.
-    ideal_product = math.prod(_pair_gain(p, topo, rs, k) for k, p in enumerate(pairs))
-    pairs = choose_pairs(comp.resistor_series, target.gain, n, topo, comp.impedance_ohm, rs,
-                         correction=_midband_estimate(req, pairs) / ideal_product,
-                         min_noise_gain=stable)
+    n = len(pairs)
     tried: set = set()
-    best = None  # (gain error, pairs, circuit, result): the best pass is kept
+    best = None  # (gain error, pairs, circuit, result)
     for _ in range(GAIN_PASSES):
         tried.add(tuple(pairs))
         circuit = _with_low_side(req, pairs, bias) if ac else _dc_circuit(req, pairs)
@@ -238,16 +266,13 @@ def synthesize(req: DesignRequest, n: int) -> Synthesis:
         ideal_product = math.prod(_pair_gain(p, topo, rs, k) for k, p in enumerate(pairs))
         new = choose_pairs(comp.resistor_series, target.gain, n, topo, comp.impedance_ohm, rs,
                            correction=result.gain / ideal_product, previous=pairs,
-                           min_noise_gain=stable)
+                           min_noise_gain=req.opamp.min_stable_gain)
         new_product = math.prod(_pair_gain(p, topo, rs, k) for k, p in enumerate(new))
         predicted = abs(math.log(target.gain / (result.gain * new_product / ideal_product)))
         if tuple(new) in tried or predicted >= err - GAIN_PASS_MIN_IMPROVEMENT:
             break
         pairs = new
-    _, pairs, circuit, result = best
-    if bias is not None and not bias.buffered:
-        circuit, result, bias_reason = _settle_bias(req, pairs, circuit, result, bias_reason)
-    return Synthesis(circuit=circuit, as_built=as_built(circuit), bias_reason=bias_reason)
+    return best[1], best[2], best[3]
 
 
 #: Stand-in for "short at midband" when predicting the midband gain before sizing.
@@ -295,25 +320,40 @@ def _pair_gain(pair, topology, rs, k) -> float:
 def _initial_bias(req: DesignRequest, n: int):
     if req.supply.kind == DUAL:
         return None, None
-    comp = req.components
-    r_top, r_bottom = bias_divider(comp.resistor_series, req.supply.v_pos,
-                                   _midrail_target_v(req), comp.impedance_ohm)
     op = req.opamp
     spare = n % op.channels_per_package != 0
     if spare and op.min_stable_gain <= 1.0:
-        reason = ("VMID is buffered by the spare op-amp unit of the last package: a stiff "
-                  "mid-rail keeps the stages from coupling through the shared bias at no "
-                  "extra package.")
-        c_bypass = _bypass_for(req, r_top, r_bottom, n)
-        return Bias(r_top, r_bottom, c_bypass, True), reason
-    c_bypass = _bypass_for(req, r_top, r_bottom, n)
+        bias = _bias(req, n, buffered=True, level_ohm=_divider_level(req, True, 0))
+        return bias, ("VMID is buffered by the spare op-amp unit of the last package: a stiff "
+                      "mid-rail keeps the stages from coupling through the shared bias at no "
+                      "extra package.")
+    bias = _bias(req, n, buffered=False, level_ohm=_divider_level(req, False, 0))
     if op.min_stable_gain > 1.0:
-        reason = ("VMID is the bypassed divider itself: the op-amp is not unity-gain stable, "
-                  "so it cannot buffer VMID as a follower.")
-    else:
-        reason = ("VMID is the bypassed divider itself: no spare op-amp unit, and the bypass "
+        return bias, ("VMID is the bypassed divider itself: the op-amp is not unity-gain "
+                      "stable, so it cannot buffer VMID as a follower.")
+    return bias, ("VMID is the bypassed divider itself: no spare op-amp unit, and the bypass "
                   "keeps the shared bias node stiff enough.")
-    return Bias(r_top, r_bottom, c_bypass, False), reason
+
+
+#: A buffered divider carries no signal current, so it sits this many times above the
+#: impedance level: the same bypass then filters the supply ten times more.
+BUFFERED_DIVIDER_RATIO = 10.0
+#: Divider impedance steps tried (x1, x10, x100 of the starting level) when the bypass
+#: alone cannot meet the supply-ripple limit within the largest capacitor allowed.
+DIVIDER_STEPS = 3
+
+
+def _divider_level(req: DesignRequest, buffered: bool, step: int) -> float:
+    base = req.components.impedance_ohm * (BUFFERED_DIVIDER_RATIO if buffered else 1.0)
+    level = base * 10.0 ** step
+    # r_top sits near twice the level: keep it under the largest resistor allowed
+    return min(level, req.limits.max_resistor_ohm / 2.0)
+
+
+def _bias(req: DesignRequest, n: int, *, buffered: bool, level_ohm: float) -> Bias:
+    r_top, r_bottom = bias_divider(req.components.resistor_series, req.supply.v_pos,
+                                   _midrail_target_v(req), level_ohm)
+    return Bias(r_top, r_bottom, _bypass_for(req, r_top, r_bottom, n), buffered)
 
 
 def _bypass_for(req: DesignRequest, r_top: float, r_bottom: float, n: int) -> float:
@@ -330,29 +370,87 @@ def _low_pole_count(req: DesignRequest, n: int) -> int:
     return n * per_stage + (1 if req.supply.kind != DUAL else 0)
 
 
-def _settle_bias(req, pairs, circuit, result, reason):
-    """Grow the bypass until the response has no low-frequency peaking; else buffer VMID."""
-    target = req.target
-    bias = circuit.bias
-    for _ in range(BYPASS_ATTEMPTS):
-        if flat_outside_band(result, target, circuit):
-            return circuit, result, reason
-        bigger = float(_round_up(req.components.capacitor_series, bias.c_bypass_f * BYPASS_GROWTH))
-        bias = replace(bias, c_bypass_f=bigger)
-        circuit = _with_low_side(req, pairs, bias)
-        result = as_built(circuit, per_stage=False)
-        reason = ("VMID is the bypassed divider; the bypass was enlarged until the shared "
-                  "bias node no longer lifted the response outside the band (no "
-                  "low-frequency peaking).")
-    if flat_outside_band(result, target, circuit) or req.opamp.min_stable_gain > 1.0:
-        return circuit, result, reason
-    bias = replace(bias, buffered=True, c_bypass_f=_bypass_for(
-        req, bias.r_top_ohm, bias.r_bottom_ohm, len(pairs)))
+def _largest_capacitor(req: DesignRequest) -> float:
+    """The largest value of the capacitor series within ``limits.max_capacitor_f``."""
+    v = _series_values(req.components.capacitor_series)
+    ok = v[v <= req.limits.max_capacitor_f * (1 + 1e-12)]
+    return float(ok[-1]) if ok.size else float(v[0])
+
+
+def _bias_quality(req: DesignRequest, pairs, bias: Bias) -> tuple[bool, float]:
+    """``(flat, ripple excess dB)`` of the circuit built on ``bias``: flat = no peaking
+    outside the band and the maximum inside the target band; ripple excess as
+    :func:`service.engine.judge.checks.ripple_excess_db` (<= 0 passes)."""
     circuit = _with_low_side(req, pairs, bias)
-    result = as_built(circuit)
-    reason = ("VMID is buffered by an extra op-amp unit: with the divider alone the shared "
-              "bias node lifted the response outside the band (low-frequency peaking).")
-    return circuit, result, reason
+    ab = as_built(circuit, per_stage=False)
+    flat = flat_outside_band(ab, req.target, circuit)
+    ctx = checks.CheckContext(
+        input_peak_v=req.signal.input_peak_v, target=req.target, limits=req.limits,
+        f_low_hz=ab.f_low_hz, f_high_hz=ab.f_high_hz, peak_hz=ab.peak_hz,
+        ripple_frequencies_hz=ripple_frequencies(req.supply_rejection_hz))
+    return flat, checks.ripple_excess_db(circuit, ctx)
+
+
+def _settle_bias(req: DesignRequest, pairs, bias: Bias) -> tuple[Bias, str | None]:
+    """The cheapest bias network that keeps the response flat and meets the ripple limit.
+
+    Tried in order of cost: the bypass grown on the current divider; then VMID buffered
+    (when the op-amp is unity-gain stable) with a divider ten times higher; then dividers
+    ten and a hundred times higher still. On each, the bypass starts at its pole-ratio size
+    and grows by the predicted ripple excess (above its corner the divider's ripple falls
+    as ``1/C``) or by ``BYPASS_GROWTH``, up to the largest capacitor allowed. When nothing
+    passes, the network with the least ripple excess among the flat ones is kept (the
+    ``supply_ripple`` check then reports it).
+    """
+    n = len(pairs)
+    c_max = _largest_capacitor(req)
+    configs = [(bias.buffered, 0)]
+    can_buffer = req.opamp.min_stable_gain <= 1.0
+    if not bias.buffered and can_buffer:
+        configs.append((True, 0))
+    buffered_end = bias.buffered or can_buffer
+    configs += [(buffered_end, step) for step in range(1, DIVIDER_STEPS)]
+    best = None  # (not flat, excess, order, bias)
+    order = 0
+    for buffered, step in configs:
+        if (buffered, step) == (bias.buffered, 0):
+            cand = bias
+        else:
+            cand = _bias(req, n, buffered=buffered,
+                         level_ohm=_divider_level(req, buffered, step))
+        for _ in range(BYPASS_ATTEMPTS + 3):
+            flat, excess = _bias_quality(req, pairs, cand)
+            order += 1
+            key = (not flat, max(excess, 0.0), order)
+            if best is None or key < best[:3]:
+                best = key + (cand,)
+            if flat and excess <= 0.0:
+                return cand, _bias_reason(bias, cand)
+            if cand.c_bypass_f >= c_max:
+                break
+            # ripple: grow by the predicted excess (+20 %); peaking: by BYPASS_GROWTH
+            growth = max(1.2 * 10.0 ** (excess / 20.0), 1.5) if excess > 0 else BYPASS_GROWTH
+            bigger = min(float(_round_up(req.components.capacitor_series,
+                                         cand.c_bypass_f * growth)), c_max)
+            cand = replace(cand, c_bypass_f=bigger)
+    chosen = best[3]
+    return chosen, _bias_reason(bias, chosen)
+
+
+def _bias_reason(start: Bias, chosen: Bias) -> str | None:
+    """Why the bias network differs from the starting one (None: unchanged)."""
+    if chosen == start:
+        return None
+    parts = []
+    if chosen.buffered and not start.buffered:
+        parts.append("VMID is buffered by an extra op-amp unit")
+    if chosen.r_top_ohm != start.r_top_ohm:
+        parts.append(f"the divider was raised to {chosen.r_top_ohm:.4g}/"
+                     f"{chosen.r_bottom_ohm:.4g} ohm")
+    if chosen.c_bypass_f != start.c_bypass_f:
+        parts.append(f"the bypass was enlarged to {chosen.c_bypass_f * 1e6:.4g} uF")
+    return ("; ".join(parts).capitalize() + ": the shared bias node must keep the response "
+            "free of low-frequency peaking and attenuate supply ripple to the limit.")
 
 
 def _dc_circuit(req: DesignRequest, pairs) -> Circuit:
@@ -511,8 +609,15 @@ class Design:
     request: DesignRequest
     synthesis: Synthesis
     ideal: ideal.IdealCascade
-    status: str
-    shortfalls: list
+    judgement: Judgement
+
+    @property
+    def status(self) -> str:
+        return self.judgement.status
+
+    @property
+    def shortfalls(self) -> list:
+        return [dict(s) for s in self.judgement.shortfalls]
 
 
 def check_request(req: DesignRequest) -> None:
@@ -560,9 +665,17 @@ def _no_deadline(where: str | None = None) -> None:
     return None
 
 
+def judge_synthesis(req: DesignRequest, syn: Synthesis, *, startup: bool = True) -> Judgement:
+    """The verdict on a synthesised circuit at the request's conditions and limits."""
+    return judge(syn.circuit, syn.as_built, target=req.target,
+                 input_peak_v=req.signal.input_peak_v, limits=req.limits,
+                 supply_rejection_hz=req.supply_rejection_hz, startup=startup)
+
+
 def design(req: DesignRequest, *, check_deadline=None) -> Design:
-    """Design the cascade: the requested stage count, or the fewest stages that meet the
-    target (auto); when none does, the stage count with the highest as-built f_high.
+    """Design the cascade: the requested stage count, or the fewest stages whose as-built
+    design meets the target and passes every check (auto); when none does, the best of
+    those tried (:func:`best_of`).
 
     :param check_deadline: optional callable, called before each candidate stage count is
         synthesised; the web layer passes its compute-budget checker, which raises once the
@@ -575,42 +688,50 @@ def design(req: DesignRequest, *, check_deadline=None) -> Design:
     if req.stages is not None:
         syn = synthesize(req, req.stages)
     else:
-        tried: dict[int, Synthesis] = {}
+        tried: dict[int, tuple[Synthesis, Judgement]] = {}
         syn = None
         for n in stage_counts_to_try(req):
             check_deadline("design")
-            tried[n] = synthesize(req, n)
-            if status_of(tried[n].as_built, req.target, tried[n].circuit)[0] == "meets_target":
-                syn = tried[n]
+            cand = synthesize(req, n)
+            tried[n] = (cand, judge_synthesis(req, cand, startup=False))
+            if tried[n][1].meets_target:
+                syn = cand
                 break
         if syn is None:
+            # none meets everything: the best of those tried and of the best reach's
+            # neighbourhood (the stage counts a practising engineer would weigh)
             reach = best_reach(req)
-            for n in (reach - 1, reach, reach + 1):
-                if 1 <= n <= ideal.MAX_STAGES and n not in tried and _stable(req, n):
+            for n in fallback_counts(req):
+                if n not in tried:
                     check_deadline("design")
-                    tried[n] = synthesize(req, n)
-            if not tried:  # no stage count is stable: best_reach's pick, flagged by a warning
-                tried[reach] = synthesize(req, reach)
-            syn = best_by_f_high(tried)
+                    cand = synthesize(req, n)
+                    tried[n] = (cand, judge_synthesis(req, cand, startup=False))
+            if not tried:  # no stage count is stable: best_reach's pick, flagged by a check
+                cand = synthesize(req, reach)
+                tried[reach] = (cand, judge_synthesis(req, cand, startup=False))
+            syn = best_of(tried)
     n = syn.circuit.n_stages
     ic = ideal.ideal_cascade(req.target.gain, req.target.f_low_hz, req.opamp.gbw_hz, n,
                              req.topology)
-    status, shortfalls = status_of(syn.as_built, req.target, syn.circuit)
-    return Design(request=req, synthesis=syn, ideal=ic, status=status, shortfalls=shortfalls)
+    return Design(request=req, synthesis=syn, ideal=ic, judgement=judge_synthesis(req, syn))
 
 
-def best_by_f_high(tried: dict) -> Synthesis:
-    """The synthesis with the highest as-built f_high (fewer stages on a tie)."""
-    n = max(sorted(tried), key=lambda k: (tried[k].as_built.f_high_hz, -k))
-    return tried[n]
-
-
-def best_design(req: DesignRequest, *, check_deadline=None) -> Design:
-    """The best achievable design for ``strict`` failures: the stage count (1..12) with
-    the highest as-built f_high, searched around the ideal optimum."""
+def fallback_counts(req: DesignRequest) -> list[int]:
+    """Stage counts weighed when none meets everything: those auto mode tries, and the
+    stable ones around the count with the best ideal reach."""
     reach = best_reach(req)
-    tried = {n: synthesize(req, n) for n in (reach - 1, reach, reach + 1)
-             if 1 <= n <= ideal.MAX_STAGES and _stable(req, n)} or {reach: synthesize(req, reach)}
-    syn = best_by_f_high(tried)
-    return design(replace(req, stages=syn.circuit.n_stages, strict=False),
-                  check_deadline=check_deadline)
+    near = [n for n in (reach - 1, reach, reach + 1)
+            if 1 <= n <= ideal.MAX_STAGES and _stable(req, n)]
+    return sorted(set(stage_counts_to_try(req)) | set(near))
+
+
+def best_of(tried: dict) -> Synthesis:
+    """Among ``{n: (synthesis, judgement)}`` none of which meets everything: the one that
+    meets the gain and band target if any, then with the fewest failed checks, then with
+    the highest as-built f_high, then the fewest stages."""
+    def rank(n):
+        syn, jd = tried[n]
+        target_misses = sum(1 for s in jd.shortfalls
+                            if s["quantity"] in ("gain_db", "f_low_hz", "f_high_hz"))
+        return (target_misses > 0, len(jd.shortfalls), -syn.as_built.f_high_hz, n)
+    return tried[min(sorted(tried), key=rank)][0]

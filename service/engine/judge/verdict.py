@@ -1,0 +1,43 @@
+"""The verdict on a circuit: its as-built figures against the target, and every build check.
+
+``status`` is ``meets_target`` iff the as-built circuit meets the target (gain within
+``gain_tolerance_db``, f_low at or below and f_high at or above the target) *and* every
+check with a limit passes (:mod:`service.engine.judge.checks`). The synthesis and the
+report both judge through :func:`judge`, so a design and the analysis of its circuit agree.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from service.engine.judge import analysis
+from service.engine.judge.checks import Check, CheckContext, run_checks
+from service.engine.judge.supply_rejection import ripple_frequencies
+from service.engine.model.circuit import Circuit, Limits, Target
+
+
+@dataclass(frozen=True)
+class Judgement:
+    """Checks in the contract's order, and (given a target) the status and shortfalls."""
+
+    checks: tuple[Check, ...]
+    status: str | None
+    shortfalls: tuple[dict, ...]
+
+    @property
+    def meets_target(self) -> bool:
+        return self.status == "meets_target"
+
+
+def judge(circuit: Circuit, ab: analysis.AsBuilt, *, target: Target | None,
+          input_peak_v: float, limits: Limits, supply_rejection_hz: float | None = None,
+          startup: bool = True) -> Judgement:
+    """Run every check on ``circuit`` (as built: ``ab``) and give the verdict."""
+    ctx = CheckContext(input_peak_v=input_peak_v, target=target, limits=limits,
+                       f_low_hz=ab.f_low_hz, f_high_hz=ab.f_high_hz, peak_hz=ab.peak_hz,
+                       ripple_frequencies_hz=ripple_frequencies(supply_rejection_hz))
+    checks = tuple(run_checks(circuit, ctx, startup=startup))
+    if target is None:
+        return Judgement(checks, None, ())
+    status, shortfalls = analysis.verdict(ab, target, list(checks))
+    return Judgement(checks, status, tuple(shortfalls))
