@@ -252,6 +252,7 @@ class _Sheet:
 
         self.fmt = fmt
         self.elm = elm
+        self.late_texts: list = []
         self.d = schemdraw.Drawing(canvas="svg" if fmt == "svg" else "matplotlib", show=False)
         self.d.config(unit=2.0, fontsize=FONT_PT, color=INK, lw=LINE_W, bgcolor=PAPER,
                       font=SVG_FONT if fmt == "svg" else MPL_FONT, margin=0.4)
@@ -279,12 +280,16 @@ class _Sheet:
     def dot(self, xy):
         self.add(self.elm.Dot(radius=0.09).at(xy).theta(0).color(INK))
 
-    def text(self, xy, text, *, color=INK, size=FONT_PT, halign="center", valign="center",
-             raw=False):
+    def text(self, xy, text, *, color=INK, size=FONT_PT, halign="center", valign="center"):
         if not text:
             return
-        self.add(self.elm.Label().at(xy).theta(0).label(text if raw else self.esc(text), halign=halign,
-                                               valign=valign, color=color, fontsize=size))
+        if self.fmt == "png" and any(ch in text for ch in "&<>$"):
+            # schemdraw sizes every label with its SVG text parser, which chokes on markup
+            # characters: such text is written straight onto the matplotlib axes instead.
+            self.late_texts.append((xy, self.esc(text), color, size, halign, valign))
+            return
+        self.add(self.elm.Label().at(xy).theta(0).label(
+            self.esc(text), halign=halign, valign=valign, color=color, fontsize=size))
 
     def part(self, part: Part, a, b, near_net: str | None = None, *, side: str = "auto"):
         """Draw a two-pin ``part`` from point ``a`` (on ``near_net``) to point ``b``."""
@@ -308,7 +313,7 @@ class _Sheet:
             value = f"{value} {part.field('Voltage')}".strip()
         if abs(a[1] - b[1]) < 1e-9:  # horizontal: reference above, value below
             self.text((mx, my + 0.42), part.ref, color=REF_COLOUR, valign="bottom")
-            self.text((mx, my - 0.42), value, color=VALUE_COLOUR, valign="top", raw=False)
+            self.text((mx, my - 0.42), value, color=VALUE_COLOUR, valign="top")
             return
         right = side != "left"
         x = mx + (0.45 if right else -0.45)
@@ -383,6 +388,9 @@ class _Sheet:
         ax.set_axis_off()
         ax.set_facecolor(PAPER)
         self.d.draw(show=False, canvas=ax)
+        for (x, y), text, color, size, halign, valign in self.late_texts:
+            ax.text(x, y, text, color=color, fontsize=size, fontfamily=MPL_FONT,
+                    horizontalalignment=halign, verticalalignment=valign, clip_on=False)
         cx, cy = (box.xmin + box.xmax) / 2, (box.ymin + box.ymax) / 2
         half_w, half_h = width_px / px_per_unit / 2, height_px / px_per_unit / 2
         ax.set_xlim(cx - half_w, cx + half_w)
