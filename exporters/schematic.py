@@ -30,6 +30,7 @@ Determinism: no timestamps, no random ids; text is written as SVG ``<text>`` ele
 from __future__ import annotations
 
 import io
+import itertools
 import math
 import re
 from dataclasses import dataclass, field
@@ -230,6 +231,12 @@ def plan(board: Board) -> Plan:
                 connectors=connectors, packages=packages, others=others)
 
 
+def _chain_end(chain) -> str:
+    """The net a chain of ``(part, near net)`` steps ends on."""
+    part, near = chain[-1]
+    return part.pins[1].net if part.pins[0].net == near else part.pins[0].net
+
+
 def _ref_key(ref: str):
     return [int(t) if t.isdigit() else t for t in re.split(r"(\d+)", ref)]
 
@@ -273,7 +280,7 @@ class _Sheet:
                  .color(color))
 
     def wire(self, *points, color=INK, ls="-"):
-        for a, b in zip(points, points[1:]):
+        for a, b in itertools.pairwise(points):
             if a != b:
                 self.add(self.elm.Line().endpoints(a, b).color(color).linestyle(ls))
 
@@ -447,16 +454,22 @@ class _Layout:
         s.wire((x, y_top), (node, y_top))
         top_chains = up.n_chains if up.n_top else up.p_chains
         bot_chains = up.p_chains if up.n_top else up.n_chains
-        # chains off the top node go up (top has no feedback when +in is on top)
+        # chains off the top (+in) node: up to a reference or supply, down to GND/VEE
         chain_x = node
+        any_down = False
         if not up.n_top:
             for i, chain in enumerate(top_chains):
                 cx = node + i * CHAIN_STEP
                 s.wire((chain_x, y_top), (cx, y_top))
                 s.dot((cx, y_top))
-                self.chain(chain, (cx, y_top), +1, side="right")
+                down = _chain_end(chain) in ("GND", "VEE")
+                any_down |= down
+                self.chain(chain, (cx, y_top), -1 if down else +1,
+                           side="left" if down else "right")
                 chain_x = cx
-        ax = chain_x + 1.7
+        # the inverting-input side sits right of a chain hanging down from +in
+        n_x = chain_x + 1.3 if any_down else node
+        ax = max(chain_x + 1.7, n_x + 0.9)
         amp = elm.Opamp(leads=False).at((ax, y0)).theta(0).color(INK)
         if not up.n_top:
             amp = amp.flip()  # +in on top
@@ -474,32 +487,31 @@ class _Layout:
         out_x = ox + 0.6
         s.wire((ox, y0), (out_x, y0))
         if not up.n_top:
-            s.wire((ax, y_bot), (node, y_bot))
+            s.wire((ax, y_bot), (n_x, y_bot))
+        n_chains = top_chains if up.n_top else bot_chains
         y_row = y_pin
         if unit.inn == unit.out:  # follower: output tied to -in
             y_row = y_pin + fb_dir * 1.0
-            s.wire((node, y_pin), (node, y_row), (out_x, y_row), (out_x, y0))
+            s.wire((n_x, y_pin), (n_x, y_row), (out_x, y_row), (out_x, y0))
             s.dot((out_x, y0))
         elif up.feedback:
-            y_row = y_pin
             for i, part in enumerate(up.feedback):
                 y_row = y_pin + fb_dir * (ROW_GAP + i * ROW_STEP)
-                s.part(part, (node, y_row), (out_x, y_row), unit.inn)
-            s.wire((node, y_pin), (node, y_row))
+                s.part(part, (n_x, y_row), (out_x, y_row), unit.inn)
+            s.wire((n_x, y_pin), (n_x, y_row))
             s.wire((out_x, y0), (out_x, y_row))
             s.dot((out_x, y0))
-            if y_pin != y_top or up.series:
-                s.dot((node, y_pin))
+            if up.n_top and up.series:
+                s.dot((n_x, y_pin))
             for i in range(len(up.feedback) - 1):
                 yy = y_pin + fb_dir * (ROW_GAP + i * ROW_STEP)
-                s.dot((node, yy))
+                s.dot((n_x, yy))
                 s.dot((out_x, yy))
-            chain_start = (node, y_row)
-            chains = top_chains if up.n_top else bot_chains
-            self.chains_from(chains, chain_start, fb_dir)
+            if n_chains:
+                s.dot((n_x, y_row))
+            self.chains_from(n_chains, (n_x, y_row), fb_dir)
         else:
-            chains = top_chains if up.n_top else bot_chains
-            self.chains_from(chains, (node, y_pin), fb_dir)
+            self.chains_from(n_chains, (n_x, y_pin), fb_dir)
         self.min_y = min(self.min_y, y0 - 2.0, y_row - 1.0 if fb_dir < 0 else y0 - 2.0)
         if up.n_top:  # +in on the bottom: its chains or its fixed net
             s.wire((ax, y_bot), (ax - 0.5, y_bot))
@@ -509,7 +521,7 @@ class _Layout:
             else:
                 self.chains_from(bot_chains, (ax - 0.5, y_bot), -1)
         elif bot_net in fixed and bot_net != unit.out:
-            s.terminal((node, y_bot), bot_net, self.board, "down")
+            s.terminal((n_x, y_bot), bot_net, self.board, "down")
         return out_x
 
     def _multi(self) -> bool:
@@ -561,10 +573,9 @@ class _Layout:
         x = rs_end + 0.9
         j1 = plan.connectors.get("input")
         if j1 is not None:
-            x = self.connector(j1, x, y_sig, entering="left")
+            x = self.connector(j1, x, y_sig)
         start = (x, y_sig)
         prev = None
-        row_height = 0.0
         for i, up in enumerate(plan.stages):
             if i and i % STAGES_PER_ROW == 0:  # wrap: net label out, net label in
                 net = up.input_net
@@ -584,10 +595,7 @@ class _Layout:
             prev = (out_x, y0)
             x = out_x
             self.signal_width = max(self.signal_width, out_x)
-        del row_height
-        end = prev if prev is not None else start
-        x, y = end
-        s.dot(end) if plan.stages else None
+        x, y = prev if prev is not None else start
         for part, near in plan.output_series:
             s.part(part, (x, y), (x + L_SERIES, y), near)
             x += L_SERIES
@@ -595,7 +603,7 @@ class _Layout:
         x += 0.8
         j2 = plan.connectors.get("output")
         if j2 is not None:
-            x = self.connector(j2, x, y, entering="left")
+            x = self.connector(j2, x, y)
         # off-board load
         load_x = x + 2.0
         s.wire((x, y), (load_x, y), color=OFF_BOARD, ls="--")
@@ -611,9 +619,10 @@ class _Layout:
         self.signal_width = max(self.signal_width, load_x + 4.0)
         return self.min_y
 
-    def connector(self, part: Part, x: float, y_pin1: float, entering: str) -> float:
-        """A 1xN header drawn as a box of numbered pins; pin 1 at ``y_pin1``. Pins other than
-        pin 1 end in their net's symbol. Returns the x where the signal leaves it."""
+    def connector(self, part: Part, x: float, y_pin1: float) -> float:
+        """A 1xN header drawn as a box of numbered pins, pin 1 at ``y_pin1`` (the signal
+        enters on the left, leaves on the right); the other pins end in their net's symbol
+        on the right. Returns the x where the signal leaves it."""
         s = self.s
         pitch = 0.7
         n = len(part.pins)
@@ -626,19 +635,15 @@ class _Layout:
                size=SMALL_PT)
         for i, pin in enumerate(part.pins):
             py = y_pin1 - i * pitch
-            s.add(s.elm.Dot(radius=0.1, open=True).at((x + w / 2, py)).color(INK))
+            s.add(s.elm.Dot(radius=0.1, open=True).at((x + w / 2, py)).theta(0).color(INK))
             s.text((x + w / 2 + 0.22, py + 0.05), pin.number, size=SMALL_PT * 0.8,
                    halign="left", valign="bottom")
-            if i == 0:
+            if i == 0:  # the signal passes through pin 1
+                s.wire((x, py), (x + w / 2 - 0.1, py))
                 s.wire((x + w / 2 + 0.1, py), (x + w, py))
                 continue
-            # other pins: a stub to the side the signal leaves, then the net's symbol
-            if entering == "left":
-                sx = x + w + 0.7
-                s.wire((x + w / 2 + 0.1, py), (sx, py))
-            else:
-                sx = x - 0.7
-                s.wire((x + w / 2 - 0.1, py), (sx, py))
+            sx = x + w + 0.7
+            s.wire((x + w / 2 + 0.1, py), (sx, py))
             s.terminal((sx, py), pin.net, self.board,
                        "down" if pin.net in ("GND", "VEE") else "right")
             self.min_y = min(self.min_y, py - 1.2)
@@ -723,7 +728,10 @@ class _Layout:
                 x += step
             x_end = max(x - 0.8, x_rail0 + 1.0)
             last_cap = max((px for kind, _, px in band if kind == "cap"), default=x_rail0)
+            has_cap = any(kind == "cap" for kind, _, _ in band)
             for net in used:
+                if net == "GND" and not single and not has_cap and not first:
+                    continue  # a band of dual-supply packages only: nothing on GND
                 end = x_end if (single or net != "GND") else last_cap + 0.6
                 s.wire((x_rail0, rails[net]), (end, rails[net]))
                 s.text((end + 0.2, rails[net]), net, color=NET_COLOUR, halign="left",
