@@ -60,6 +60,11 @@ FONT_PT = 10.5
 SMALL_PT = 9.0
 TITLE_PT = 13.0
 LINE_W = 1.4
+#: Points per drawing unit (schemdraw's 0.5 inch per unit, 72 pt per inch).
+PT_PER_UNIT = 36.0
+#: Baseline below the anchor, in font sizes, for each vertical alignment: a capital's
+#: height is about 0.72 of the size and descenders about 0.22 (DejaVu Sans, from memory).
+_BASELINE_DROP = {"top": 0.75, "center": 0.36, "bottom": -0.22}
 
 # ---- grid (drawing units; a unit is 0.5 inch at the natural size) ----------------------
 L_SERIES = 2.2  # horizontal part length
@@ -290,13 +295,16 @@ class _Sheet:
     def text(self, xy, text, *, color=INK, size=FONT_PT, halign="center", valign="center"):
         if not text:
             return
+        # Every text sits on its alphabetic baseline: SVG renderers differ on the other
+        # dominant-baseline values ("hanging", "central"...), the alphabetic one is universal.
+        baseline = xy[1] - _BASELINE_DROP[valign] * size / PT_PER_UNIT
         if self.fmt == "png" and any(ch in text for ch in "&<>$"):
             # schemdraw sizes every label with its SVG text parser, which chokes on markup
             # characters: such text is written straight onto the matplotlib axes instead.
-            self.late_texts.append((xy, self.esc(text), color, size, halign, valign))
+            self.late_texts.append(((xy[0], baseline), self.esc(text), color, size, halign))
             return
-        self.add(self.elm.Label().at(xy).theta(0).label(
-            self.esc(text), halign=halign, valign=valign, color=color, fontsize=size))
+        self.add(self.elm.Label().at((xy[0], baseline)).theta(0).label(
+            self.esc(text), halign=halign, valign="base", color=color, fontsize=size))
 
     def part(self, part: Part, a, b, near_net: str | None = None, *, side: str = "auto"):
         """Draw a two-pin ``part`` from point ``a`` (on ``near_net``) to point ``b``."""
@@ -336,18 +344,14 @@ class _Sheet:
             if direction == "up":
                 g = g.theta(180)
             self.add(g)
-        elif net == "VCC":
+        elif net in ("VCC", "VEE"):
+            x, y = xy
             if direction == "down":
-                self.add(elm.Vss().at(xy).color(INK).label("VCC", loc="bottom",
-                                                              color=NET_COLOUR))
+                self.add(elm.Vss().at(xy).theta(0).color(INK))
+                self.text((x, y - 0.55), net, color=NET_COLOUR, valign="top")
             else:
-                self.add(elm.Vdd().at(xy).color(INK).label("VCC", color=NET_COLOUR))
-        elif net == "VEE":
-            if direction == "up":
-                self.add(elm.Vdd().at(xy).color(INK).label("VEE", color=NET_COLOUR))
-            else:
-                self.add(elm.Vss().at(xy).color(INK).label("VEE", loc="bottom",
-                                                              color=NET_COLOUR))
+                self.add(elm.Vdd().at(xy).theta(0).color(INK))
+                self.text((x, y + 0.55), net, color=NET_COLOUR, valign="bottom")
         else:
             self.net_label(xy, net, direction)
 
@@ -367,7 +371,7 @@ class _Sheet:
         bar_y = y + sign * 0.3
         self.add(elm.Line().endpoints(xy, (x, bar_y)).color(NET_COLOUR))
         self.add(elm.Line().endpoints((x - 0.25, bar_y), (x + 0.25, bar_y)).color(NET_COLOUR))
-        self.text((x, bar_y + sign * 0.08), net, color=NET_COLOUR, size=SMALL_PT,
+        self.text((x, bar_y + sign * 0.15), net, color=NET_COLOUR, size=SMALL_PT,
                   valign="bottom" if sign > 0 else "top")
 
     # ---- output ---------------------------------------------------------------------
@@ -395,9 +399,9 @@ class _Sheet:
         ax.set_axis_off()
         ax.set_facecolor(PAPER)
         self.d.draw(show=False, canvas=ax)
-        for (x, y), text, color, size, halign, valign in self.late_texts:
+        for (x, y), text, color, size, halign in self.late_texts:
             ax.text(x, y, text, color=color, fontsize=size, fontfamily=MPL_FONT,
-                    horizontalalignment=halign, verticalalignment=valign, clip_on=False)
+                    horizontalalignment=halign, verticalalignment="baseline", clip_on=False)
         cx, cy = (box.xmin + box.xmax) / 2, (box.ymin + box.ymax) / 2
         half_w, half_h = width_px / px_per_unit / 2, height_px / px_per_unit / 2
         ax.set_xlim(cx - half_w, cx + half_w)
