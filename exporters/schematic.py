@@ -117,8 +117,19 @@ def plan(board: Board) -> Plan:
     fixed = _fixed_nets(board)
     passives = [p for p in board.parts if len(p.pins) == 2 and p.prefix in ("R", "C", "L")]
     free = {p.ref: p for p in passives}
-    connectors = {p.role: p for p in board.parts if p.prefix == "J"}
-    packages = [p for p in board.parts if p.prefix == "U"]
+    connectors: dict[str, Part] = {}
+    unplaced: list[Part] = []  # parts of a kind the rules below do not draw
+    for part in board.parts:
+        if part.prefix == "J" and part.role in ("input", "output", "power") \
+                and part.role not in connectors:
+            connectors[part.role] = part
+        elif part.prefix not in ("R", "C", "L", "U") or (part.prefix != "U" and
+                                                         part not in passives):
+            unplaced.append(part)
+    supply_pins = ("V+", "V-")
+    packages = [p for p in board.parts if p.prefix == "U"
+                and all(any(pin.function == f for pin in p.pins) for f in supply_pins)]
+    unplaced += [p for p in board.parts if p.prefix == "U" and p not in packages]
     unit_nets = {n for u in board.units for n in (u.inp, u.inn, u.out)}
     conn_nets = {pin.net for p in connectors.values() for pin in p.pins}
 
@@ -142,6 +153,8 @@ def plan(board: Board) -> Plan:
         """Chains node -> (private nets) -> a fixed net, up to three parts long."""
         found = []
         for first in touching(node):
+            if first.ref not in free:  # taken by an earlier chain
+                continue
             chain, here, part = [], node, first
             while part is not None and len(chain) < 3:
                 chain.append((part, here))
@@ -228,9 +241,7 @@ def plan(board: Board) -> Plan:
                 bias_bottom.append(take(part))
     supply = [take(p) for p in list(free.values())
               if set(nets(p)) in ({"VCC", "GND"}, {"VEE", "GND"}, {"VCC", "VEE"})]
-    others = sorted(free.values(), key=lambda p: _ref_key(p.ref))
-    placed_kinds = {"R", "C", "L", "J", "U"}
-    others += [p for p in board.parts if p.prefix not in placed_kinds]
+    others = sorted([*free.values(), *unplaced], key=lambda p: _ref_key(p.ref))
     return Plan(stages=stages, follower=follower, spares=spares, output_series=output_series,
                 bias_top=bias_top, bias_bottom=bias_bottom, bias_net=bias_net, supply=supply,
                 connectors=connectors, packages=packages, others=others)

@@ -123,12 +123,14 @@ def test_a_part_new_to_the_board_is_drawn_from_its_nets():
                description="", pins=(Pin("1", "S2_M"), Pin("2", "S1_M")), value_si=1e6)
     tp = Part(ref="TP1", value="TestPoint", footprint="", lib="Connector", symbol="TestPoint",
               description="", pins=(Pin("1", "OUT"),))
-    board = _with_parts(board, c_fb, odd, tp)
+    j4 = Part(ref="J4", value="Conn_01x01", footprint="", lib="Connector_Generic",
+              symbol="Conn_01x01", description="", role="monitor", pins=(Pin("1", "OUT"),))
+    board = _with_parts(board, c_fb, odd, tp, j4)
     p = plan(board)
     assert "C90" in [x.ref for x in p.stages[0].feedback]
-    assert {x.ref for x in p.others} == {"R91", "TP1"}
+    assert {x.ref for x in p.others} == {"R91", "TP1", "J4"}
     texts = svg_texts(schematic(board, fmt="svg"))
-    assert {"C90", "R91", "TP1"} <= set(texts)
+    assert {"C90", "R91", "TP1", "J4"} <= set(texts)
 
 
 def test_a_spare_unit_wired_as_a_gain_stage_is_drawn_from_its_nets():
