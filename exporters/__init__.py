@@ -9,5 +9,6 @@ No Flask, no I/O: a CLI or a batch job can call them directly. Module map:
 * ``bom`` / ``bom_csv`` / ``bom_xlsx``: the BOM lines, the KiCad-compatible CSV, the workbook;
 * ``spice``: the self-contained ngspice deck;
 * ``kicad_common`` / ``kicad_sexpr`` / ``kicad_xml``: KiCad's ``.net`` and ``.xml`` netlists;
-* ``formats``: ``export(kind, circuit, ...)``, the one entry point per download kind.
+* ``formats``: ``export(kind, circuit, ...)``, the one entry point per download kind;
+* ``schematic``: ``schematic(board, fmt=...)``, the board drawn as an SVG or PNG sheet.
 """

@@ -88,6 +88,7 @@ class Operation:
     path_enums: dict = field(default_factory=dict)  # path parameter -> "module:TUPLE" of values
     query: tuple = ()  # OpenAPI parameter objects for the query string (values may be refs)
     request_example: dict | None = None  # a valid body (docs, client generators, the fuzzer)
+    operation_id: str = ""  # published operationId (empty: derived from the method and path)
 
 
 
@@ -100,6 +101,17 @@ _PLOT_QUERY = tuple(
     for name, what, default in (("width_px", "width", 900), ("height_px", "height", 600)))
 _PLOT_DESCRIPTION = ("The body is a design request (as for POST /v1/designs) or a circuit "
                      "with an optional target (as for POST /v1/analyses).")
+_SCHEMATIC_QUERY = tuple(
+    {"name": name, "in": "query", "required": False,
+     "description": f"Image {what} in pixels (default: the drawing's natural size, fitted "
+                    "within the maximum; one side given, the other keeps the aspect ratio).",
+     "schema": {"type": "integer", "minimum": "exporters.schematic:MIN_PX",
+                "maximum": "exporters.schematic:MAX_PX"}}
+    for name, what in (("width_px", "width"), ("height_px", "height")))
+_SCHEMATIC_DESCRIPTION = (
+    "The designed board drawn as a schematic: every part with its reference (the same as "
+    "in the BOM and netlists) and value, signal left to right, the bias network, spare "
+    "op-amp units, supply decoupling, connectors and a title block. " + _PLOT_DESCRIPTION)
 
 OPERATIONS: tuple[Operation, ...] = (
     Operation("/healthz", "GET", "Liveness probe: the process answers.", "meta",
@@ -165,6 +177,14 @@ OPERATIONS: tuple[Operation, ...] = (
               "plots", {200: {PNG: BINARY}}, request=_PLOT_BODY, query=_PLOT_QUERY,
               errors=COMPUTE_ERRORS, description=_PLOT_DESCRIPTION,
               request_example=README_EXAMPLE),
+    Operation("/v1/plots/schematic.svg", "POST", "Schematic (SVG) of a design or a circuit.",
+              "plots", {200: {SVG: TEXT_BODY}}, request=_PLOT_BODY, query=_SCHEMATIC_QUERY,
+              errors=COMPUTE_ERRORS, description=_SCHEMATIC_DESCRIPTION,
+              request_example=README_EXAMPLE, operation_id="drawSchematicSvg"),
+    Operation("/v1/plots/schematic.png", "POST", "Schematic (PNG) of a design or a circuit.",
+              "plots", {200: {PNG: BINARY}}, request=_PLOT_BODY, query=_SCHEMATIC_QUERY,
+              errors=COMPUTE_ERRORS, description=_SCHEMATIC_DESCRIPTION,
+              request_example=README_EXAMPLE, operation_id="drawSchematicPng"),
 )
 
 
@@ -406,6 +426,8 @@ def build_spec(app) -> dict:
 
 
 def _operation_id(op: Operation) -> str:
+    if op.operation_id:
+        return op.operation_id
     words = openapi_path(op.path).replace("{", "").replace("}", "")
     for ch in "/.-":
         words = words.replace(ch, "_")

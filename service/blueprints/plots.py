@@ -1,10 +1,14 @@
-"""POST /v1/plots/bode.svg and /v1/plots/bode.png: the response curves drawn with matplotlib.
+"""POST /v1/plots/bode.svg and /v1/plots/bode.png: the response curves drawn with matplotlib;
+POST /v1/plots/schematic.svg and /v1/plots/schematic.png: the board drawn as a schematic
+(``exporters.schematic``).
 
 Body: a design request (as for POST /v1/designs) or ``{"circuit": ..., "target": optional}``
-(as for POST /v1/analyses). Query: ``width_px``, ``height_px`` (``MIN_PX``..``MAX_PX``).
-The cascade's Vout/Vs is drawn bold, each stage's cumulative output lighter; the target band
-and corners carry the SVG ids ``target-band``, ``target-f-low``, ``target-f-high``
-(matplotlib's gid) so that portals can restyle them.
+(as for POST /v1/analyses, ``name`` included). Query: ``width_px``, ``height_px``
+(``MIN_PX``..``MAX_PX``). The cascade's Vout/Vs is drawn bold, each stage's cumulative output
+lighter; the target band and corners carry the SVG ids ``target-band``, ``target-f-low``,
+``target-f-high`` (matplotlib's gid) so that portals can restyle them. The schematic's
+default size is the drawing's natural size (fitted within ``MAX_PX``); one side given, the
+other follows the drawing's aspect ratio.
 """
 
 from __future__ import annotations
@@ -26,10 +30,10 @@ DPI = 100
 CURVE_POINTS = 400
 
 
-def _size() -> tuple[int, int]:
+def _size(defaults=(DEFAULT_WIDTH_PX, DEFAULT_HEIGHT_PX)) -> tuple:
     errors = {}
     sizes = []
-    for name, default in (("width_px", DEFAULT_WIDTH_PX), ("height_px", DEFAULT_HEIGHT_PX)):
+    for name, default in zip(("width_px", "height_px"), defaults, strict=True):
         raw = request.args.get(name)
         if raw is None:
             sizes.append(default)
@@ -134,6 +138,53 @@ def bode_svg():
     :raise 400: malformed JSON. :raise 415: not JSON. :raise 422: invalid body or size.
     """
     return _plot("svg", "image/svg+xml")
+
+
+@bp.post("/schematic.svg")
+def schematic_svg():
+    """Schematic (SVG) of a design request or a circuit.
+
+    :raise 400: malformed JSON. :raise 415: not JSON. :raise 422: invalid body or size.
+    """
+    return _schematic("svg", "image/svg+xml")
+
+
+@bp.post("/schematic.png")
+def schematic_png():
+    """Schematic (PNG) of a design request or a circuit.
+
+    :raise 400: malformed JSON. :raise 415: not JSON. :raise 422: invalid body or size.
+    """
+    return _schematic("png", "image/png")
+
+
+def _schematic(fmt: str, mimetype: str) -> Response:
+    from exporters.board import build_board
+    from exporters.schematic import schematic
+
+    width_px, height_px = _size(defaults=(None, None))
+    circuit, name, tolerances = _schematic_circuit(get_json_body())
+    board = build_board(circuit, name=name or "", **tolerances)
+    data = schematic(board, fmt=fmt, width_px=width_px, height_px=height_px)
+    return Response(data, status=200, mimetype=mimetype)
+
+
+def _schematic_circuit(body):
+    """The circuit, name and passive tolerances of a body: a circuit as it is (validated by
+    the analysis schema, not analysed) or a design request (designed first)."""
+    from schemas.request import AnalysisRequestSchema
+    from service.engine.model.circuit import Circuit
+
+    if not isinstance(body, dict):
+        raise ValidationError({"_schema": ["The body must be a JSON object."]})
+    if "circuit" in body:
+        data = AnalysisRequestSchema().load(body)
+        return data["circuit"], data.get("name"), {}
+    design = run_design(body)
+    components = body.get("components") or {}
+    tolerances = {key: float(components[key]) for key in
+                  ("resistor_tolerance_pct", "capacitor_tolerance_pct") if key in components}
+    return Circuit.from_dict(design["circuit"]), body.get("name"), tolerances
 
 
 @bp.post("/bode.png")

@@ -197,6 +197,17 @@ CASES = [
      "input_peak_v"),
     ("analysis_circuit_is_array", "POST", "/v1/analyses", {"circuit": []}, None, J, 422,
      "circuit"),
+    ("schematic_malformed_json", "POST", "/v1/plots/schematic.svg", None, b'{"target": {', J,
+     400, None),
+    ("schematic_text_plain", "POST", "/v1/plots/schematic.png", None, json.dumps(BASE).encode(),
+     "text/plain", 415, None),
+    ("schematic_get", "GET", "/v1/plots/schematic.svg", None, None, None, 405, None),
+    ("schematic_unknown_field", "POST", "/v1/plots/schematic.svg", with_("colour", "red"), None,
+     J, 422, "colour"),
+    ("schematic_circuit_missing_stages", "POST", "/v1/plots/schematic.svg",
+     circuit_without("stages"), None, J, 422, "circuit.stages"),
+    ("schematic_body_is_array", "POST", "/v1/plots/schematic.png", [BASE], None, J, 422,
+     "_schema"),
 ]
 
 

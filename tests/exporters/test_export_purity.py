@@ -13,7 +13,7 @@ ROOT = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__)
 
 
 def test_exporters_import_without_flask_or_test_readers():
-    code = ("import sys, exporters.formats; "
+    code = ("import sys, exporters.formats, exporters.schematic; "
             "bad = {'flask', 'werkzeug', 'kicad_netlist_reader', 'kinparse'} & set(sys.modules); "
             "print(sorted(bad))")
     out = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True,

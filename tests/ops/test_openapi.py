@@ -100,10 +100,21 @@ def test_file_media_types(spec):
     media = {mt for item in spec["paths"].values() for op in item.values()
              for resp in op["responses"].values() for mt in resp.get("content", {})}
     assert {"application/json", PROBLEM_MEDIA, "text/plain"} <= media
-    expected_if_served = {"/v1/plots/bode.png": "image/png", "/v1/plots/bode.svg": "image/svg+xml"}
+    expected_if_served = {"/v1/plots/bode.png": "image/png", "/v1/plots/bode.svg": "image/svg+xml",
+                          "/v1/plots/schematic.png": "image/png",
+                          "/v1/plots/schematic.svg": "image/svg+xml"}
     for path, mt in expected_if_served.items():
         if path in spec["paths"]:
             assert mt in spec["paths"][path]["post"]["responses"]["200"]["content"]
+
+
+def test_schematic_operations_have_their_own_ids(spec):
+    ids = {path: spec["paths"][path]["post"]["operationId"]
+           for path in ("/v1/plots/schematic.svg", "/v1/plots/schematic.png")}
+    assert ids == {"/v1/plots/schematic.svg": "drawSchematicSvg",
+                   "/v1/plots/schematic.png": "drawSchematicPng"}
+    every_id = [op["operationId"] for item in spec["paths"].values() for op in item.values()]
+    assert len(every_id) == len(set(every_id))
 
 
 def test_table_has_one_row_per_operation():

@@ -100,6 +100,7 @@ def test_exports(served, kind):
     _check(served, "POST", f"/v1/exports/{kind}", 200, json=README_EXAMPLE)
 
 
+@pytest.mark.parametrize("plot", ["bode", "schematic"])
 @pytest.mark.parametrize("ext", ["svg", "png"])
-def test_plots(served, ext):
-    _check(served, "POST", f"/v1/plots/bode.{ext}", 200, json=README_EXAMPLE)
+def test_plots(served, plot, ext):
+    _check(served, "POST", f"/v1/plots/{plot}.{ext}", 200, json=README_EXAMPLE)

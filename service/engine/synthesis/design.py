@@ -596,7 +596,8 @@ def _f_low_estimates(params: chain.ChainParams, req: DesignRequest) -> np.ndarra
     x0, x1 = np.log(grid[j]), np.log(grid[j + 1])
     with np.errstate(divide="ignore", invalid="ignore"):
         x = np.where(m1 != m0, x0 - m0 * (x1 - x0) / (m1 - m0), x0)
-    est = np.exp(x)
+    with np.errstate(over="ignore"):  # degenerate extrapolation -> inf, which fails the f_low test
+        est = np.exp(x)
     est = np.where(below.any(axis=1), est, 0.0)
     return est
 
