@@ -5,6 +5,8 @@ from __future__ import annotations
 from exporters.board import PINOUTS, Board, Part
 
 TOOL = "gainchain 0.1.0"
+#: Title-block comment 1 of the root sheet in both netlists: this prefix and the design id.
+DESIGN_ID_COMMENT = "design_id "
 #: Fields written per component, in this order; empty fields are left out.
 FIELD_ORDER = ("Description", "Tolerance", "Voltage", "Dielectric", "Manufacturer", "MPN")
 
