@@ -63,8 +63,8 @@ def export(kind: str, circuit: Circuit, *, name: str | None = None, report: dict
         as_built = ((report or {}).get("performance") or {}).get("as_built")
         data = spice_deck(board, edges=edges_from_report(as_built)).encode("utf-8")
     elif kind == "netlist.net":
-        data = kicad_net(board, date=date_text).encode("utf-8")
+        data = kicad_net(board, date=date_text, library=library).encode("utf-8")
     else:
-        data = kicad_xml(board, date=date_text)
+        data = kicad_xml(board, date=date_text, library=library)
     return ExportFile(filename=f"{safe_filename(name)}-{kind}", mimetype=MIME_TYPES[kind],
                       data=data)

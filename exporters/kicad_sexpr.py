@@ -13,9 +13,11 @@ from __future__ import annotations
 from exporters.board import Board
 from exporters.kicad_common import DESIGN_ID_COMMENT, TOOL, comp_fields
 from exporters.names import sx
+from exporters.stock import PartsLibrary
 
 
-def kicad_net(board: Board, *, date: str | None = None) -> str:
+def kicad_net(board: Board, *, date: str | None = None,
+              library: PartsLibrary | None = None) -> str:
     """The ``.net`` file as text (LF line ends)."""
     design = f"(source {sx(board.name or 'gainchain design')})"
     if date:
@@ -28,7 +30,7 @@ def kicad_net(board: Board, *, date: str | None = None) -> str:
     for part in board.parts:
         lines.append(f"    (comp (ref {sx(part.ref)}) (value {sx(part.value)}) "
                      f"(footprint {sx(part.footprint)})")
-        fields = comp_fields(part)
+        fields = comp_fields(part, library)
         if fields:
             lines.append("      (fields " + " ".join(
                 f"(field (name {sx(name)}) {sx(value)})" for name, value in fields) + ")")

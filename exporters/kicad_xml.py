@@ -15,6 +15,7 @@ import xml.etree.ElementTree as ET
 from exporters.board import Board
 from exporters.kicad_common import DESIGN_ID_COMMENT, TOOL, comp_fields, libparts
 from exporters.names import xml_text
+from exporters.stock import PartsLibrary
 
 
 def _sub(parent: ET.Element, tag: str, text: str | None = None, **attrib) -> ET.Element:
@@ -24,7 +25,8 @@ def _sub(parent: ET.Element, tag: str, text: str | None = None, **attrib) -> ET.
     return el
 
 
-def kicad_xml(board: Board, *, date: str | None = None) -> bytes:
+def kicad_xml(board: Board, *, date: str | None = None,
+              library: PartsLibrary | None = None) -> bytes:
     """The ``.xml`` file as UTF-8 bytes with an XML declaration."""
     root = ET.Element("export", {"version": "E"})
     design = _sub(root, "design")
@@ -43,7 +45,7 @@ def kicad_xml(board: Board, *, date: str | None = None) -> bytes:
         _sub(comp, "footprint", part.footprint)
         _sub(comp, "datasheet", "~")
         _sub(comp, "description", part.description)
-        fields = comp_fields(part)
+        fields = comp_fields(part, library)
         if fields:
             fel = _sub(comp, "fields")
             for name, value in fields:

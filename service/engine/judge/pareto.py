@@ -38,7 +38,8 @@ def pareto_flags(points: Sequence[Sequence], eligible: Sequence[bool]) -> list[b
     return out
 
 
-def rank_order(meets: Sequence[bool], pareto: Sequence[bool], keys: Sequence[Sequence]) -> list[int]:
+def rank_order(meets: Sequence[bool], pareto: Sequence[bool],
+               keys: Sequence[Sequence]) -> list[int]:
     """Indices in rank order: meeting candidates first, Pareto ones first among them, then
     by ``keys`` (e.g. part count, noise, current), then by input position (stable)."""
     def key(i):
