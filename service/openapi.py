@@ -214,6 +214,17 @@ def _custom_fields() -> dict:
             {"type": "string", "minLength": 1, "maxLength": 80,
              "description": "Catalog id (GET /v1/opamps)."},
             conv.resolve_nested_schema(_resolve("schemas.opamp:OpAmpSchema"))]},
+        "schemas.request:OpAmpChoicesField": lambda conv: {
+            "type": "array", "minItems": 1,
+            "maxItems": _resolve("schemas.request:MAX_EXPLORATION_OPAMPS"),
+            "description": "Catalog ids and/or op-amp objects; omitted: the whole catalog.",
+            "items": {"oneOf": [
+                {"type": "string", "minLength": 1, "maxLength": 80},
+                conv.resolve_nested_schema(_resolve("schemas.opamp:OpAmpSchema"))]}},
+        "schemas.request:StageCountsField": lambda conv: {"oneOf": [
+            {"type": "string", "enum": ["auto"]},
+            {"type": "array", "minItems": 1, "maxItems": _max_stages(), "uniqueItems": True,
+             "items": {"type": "integer", "minimum": 1, "maximum": _max_stages()}}]},
     }
 
 
