@@ -51,8 +51,8 @@ def _brute(points, eligible):
         beaten = False
         for j, q in enumerate(points):
             if j != i and eligible[j]:
-                no_worse = all(a <= b for a, b in zip(q, p))
-                better = any(a < b for a, b in zip(q, p))
+                no_worse = all(a <= b for a, b in zip(q, p, strict=True))
+                better = any(a < b for a, b in zip(q, p, strict=True))
                 beaten = beaten or (no_worse and better)
         out.append(not beaten)
     return out
