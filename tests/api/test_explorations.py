@@ -46,7 +46,8 @@ def _brute_pareto(cands, with_cost=False):
             if a is b:
                 continue
             va, vb = _criteria(a, with_cost), _criteria(b, with_cost)
-            if all(x <= y for x, y in zip(va, vb, strict=True)) and any(x < y for x, y in zip(va, vb, strict=True)):
+            pairs = list(zip(va, vb, strict=True))
+            if all(x <= y for x, y in pairs) and any(x < y for x, y in pairs):
                 dominated = True
         if not dominated:
             out.add((b["opamp_id"], b["stage_count"]))
