@@ -13,7 +13,8 @@ dominates on part count, input-referred noise, supply current and, when the part
 gives prices, BOM cost (``service.engine.judge.pareto``). Candidates come in rank order:
 meeting first, Pareto first among them, then by part count, input noise, supply current,
 cost, and request order. A request an op-amp cannot serve (e.g. a supply outside its range)
-is listed under ``skipped`` with the reason.
+is listed under ``skipped`` with the reason (once per op-amp, ``stage_count`` null, when the
+op-amp cannot serve the request at any stage count).
 """
 
 from __future__ import annotations
@@ -108,6 +109,7 @@ def explore(body) -> dict:
         base = {**body, "opamp": opamp, "stages": "auto"}
         counts = data["stages"]
         try:
+            design_mod.check_request(load_design_request(base)[0])  # e.g. the supply range
             if counts is None:
                 budget.check("exploration")
                 counts = [_auto_count(base)]
