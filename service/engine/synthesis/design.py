@@ -92,7 +92,7 @@ def _series_values(series: str | tuple) -> np.ndarray:
     name, allowed = series
     full = eseries.values_between(name, 1e-13, 1e9)
     allowed = np.asarray(allowed, dtype=float)
-    keep = np.array([np.any(np.abs(allowed / v - 1.0) <= 1e-9) for v in full], dtype=bool)
+    keep = np.isclose(full[:, None], allowed[None, :], rtol=1e-9, atol=0.0).any(axis=1)
     if not keep.any():
         raise EngineError(f"none of the stocked values is a member of {name}",
                           field="components.stocked_only")
