@@ -9,7 +9,9 @@ size 0603:
 * ceramic capacitors: E12, 1 pF .. 10 uF, 10 % (C0G 5 %), 0603, in the dielectric class the
   exporters choose for each value, rated 16 and 50 V (X5R: 16 and 25 V);
 * aluminium electrolytics: E6, 10 uF .. 1000 uF, 20 %, rated 6.3 .. 50 V, polarised and
-  bipolar, in the can size the exporters choose for each value and rating.
+  bipolar, in the can size the exporters choose for each value and rating;
+* the built-in op-amp archetypes (by catalog id, no MPN: they are not real parts) in their
+  SOIC packages, and the 2- and 3-pin headers of the connectors.
 
 Run from the repository root: ``python examples/make_parts_library.py``.
 """
@@ -90,8 +92,36 @@ def electrolytics() -> list[dict]:
     return out
 
 
+#: The built-in archetypes (invented ids) with invented stock prices; no MPN (not real parts).
+OPAMP_PRICES = {"gc-jfet-4m": 0.60, "gc-cmos-rr-10m": 0.45, "gc-bjt-lownoise-8m": 0.80,
+                "gc-micro-1m": 0.55, "gc-fast-50m-g5": 1.20}
+
+
+def opamps() -> list[dict]:
+    from exporters.board import _SOIC, PINOUTS
+    from service.engine.model.catalog import BUILTIN_OPAMPS
+
+    out = []
+    for op in BUILTIN_OPAMPS:
+        footprint = _SOIC[PINOUTS[op.channels_per_package]["pins"]]
+        pn = "GC-U-" + op.id.upper().removeprefix("GC-")
+        out.append({"kind": "opamp", "opamp_id": op.id, "package": package_of(footprint),
+                    "internal_pn": pn, "unit_cost": OPAMP_PRICES[op.id]})
+    return out
+
+
+def connectors() -> list[dict]:
+    from exporters.board import _HEADER
+
+    return [{"kind": "connector", "package": package_of(_HEADER[pins]),
+             "internal_pn": f"GC-J-HDR-1X{pins:02d}", "manufacturer": MAKER,
+             "mpn": f"IPC-HDR-1X{pins:02d}", "unit_cost": 0.03 + 0.01 * pins}
+            for pins in sorted(_HEADER)]
+
+
 def library() -> dict:
-    return {"currency": "EUR", "parts": resistors() + ceramics() + electrolytics()}
+    return {"currency": "EUR", "parts": resistors() + ceramics() + electrolytics() + opamps()
+            + connectors()}
 
 
 if __name__ == "__main__":

@@ -12,8 +12,8 @@ reference (natural order). Every text cell is neutralised by
 
 A line is stocked when a parts library is given and its part matches a stocked part
 (:func:`exporters.stock.match`); the stocked part's internal number, manufacturer, MPN and
-price fill the line. Op-amp packages and connectors are not library kinds: their
-manufacturer and MPN come from the op-amp (catalog) and they are never "stocked".
+price fill the line. An op-amp line keeps the op-amp's (catalog) manufacturer and MPN unless
+a stocked ``opamp`` entry gives its own.
 """
 
 from __future__ import annotations
@@ -22,7 +22,14 @@ from decimal import Decimal
 
 from exporters.board import Board
 from exporters.names import cell_text
-from exporters.stock import PartsLibrary, match, money
+from exporters.stock import (
+    CAPACITOR,
+    KIND_OF_PREFIX,
+    RESISTOR,
+    PartsLibrary,
+    match,
+    money,
+)
 from exporters.values import join_refs, natural_key
 
 COLUMNS = ("Reference", "Value", "Datasheet", "Footprint", "Qty", "DNP", "Description",
@@ -53,7 +60,7 @@ def bom_lines(board: Board, library: PartsLibrary | None = None) -> list[list]:
     costs as ``Decimal`` (or ``""`` when not priced)."""
     rows = []
     for refs, part in _groups(board):
-        stock = match(part, library)
+        stock = match(part, library, opamp_id=board.circuit.opamp.id)
         manufacturer, mpn = part.field("Manufacturer"), part.field("MPN")
         internal_pn, unit, extended = "", "", ""
         if stock is not None:
@@ -94,8 +101,10 @@ def bom_cost(board: Board, library: PartsLibrary | None) -> dict | None:
 
 
 def unstocked_references(board: Board, library: PartsLibrary | None) -> list[str]:
-    """References of the resistor and capacitor lines no stocked part matches."""
+    """References of the lines no stocked part matches, among the kinds the library holds
+    (resistors and capacitors always; op-amps and connectors when it lists any)."""
     if library is None:
         return []
+    kinds = {p.kind for p in library.parts} | {RESISTOR, CAPACITOR}
     return [row[0] for row in bom_lines(board, library)
-            if row[STOCKED_COLUMN] == "no" and row[0][:1] in ("R", "C")]
+            if row[STOCKED_COLUMN] == "no" and KIND_OF_PREFIX.get(row[0][:1]) in kinds]

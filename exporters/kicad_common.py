@@ -13,11 +13,12 @@ FIELD_ORDER = ("Description", "Tolerance", "Voltage", "Dielectric", "Manufacture
                "Internal PN")
 
 
-def comp_fields(part: Part, library: PartsLibrary | None = None) -> list[tuple[str, str]]:
+def comp_fields(part: Part, library: PartsLibrary | None = None,
+                opamp_id: str | None = None) -> list[tuple[str, str]]:
     """Non-empty BOM fields of a part (the ones KiCad keeps as symbol fields); a part that
     matches a stocked part of ``library`` takes its manufacturer, MPN and internal PN."""
     fields = dict(part.fields)
-    stock = match(part, library)
+    stock = match(part, library, opamp_id=opamp_id)
     if stock is not None:
         fields["Manufacturer"] = stock.manufacturer or fields.get("Manufacturer", "")
         fields["MPN"] = stock.mpn or fields.get("MPN", "")

@@ -30,7 +30,7 @@ def kicad_net(board: Board, *, date: str | None = None,
     for part in board.parts:
         lines.append(f"    (comp (ref {sx(part.ref)}) (value {sx(part.value)}) "
                      f"(footprint {sx(part.footprint)})")
-        fields = comp_fields(part, library)
+        fields = comp_fields(part, library, board.circuit.opamp.id)
         if fields:
             lines.append("      (fields " + " ".join(
                 f"(field (name {sx(name)}) {sx(value)})" for name, value in fields) + ")")

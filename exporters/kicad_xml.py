@@ -45,7 +45,7 @@ def kicad_xml(board: Board, *, date: str | None = None,
         _sub(comp, "footprint", part.footprint)
         _sub(comp, "datasheet", "~")
         _sub(comp, "description", part.description)
-        fields = comp_fields(part, library)
+        fields = comp_fields(part, library, board.circuit.opamp.id)
         if fields:
             fel = _sub(comp, "fields")
             for name, value in fields:

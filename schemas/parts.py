@@ -9,7 +9,7 @@ from __future__ import annotations
 from marshmallow import Schema, ValidationError, fields, post_load, validates_schema
 from marshmallow.validate import Length, OneOf, Range, Regexp
 
-from exporters.stock import CAPACITOR, DIELECTRICS, KINDS, RESISTOR, StockPart
+from exporters.stock import CAPACITOR, CONNECTOR, DIELECTRICS, KINDS, OPAMP, RESISTOR, StockPart
 from schemas.fields import OutFloat, StrictFloat
 
 #: ISO 4217 alphabetic codes are three capital letters.
@@ -18,26 +18,39 @@ CURRENCY = Regexp(r"^[A-Z]{3}$", error="an ISO 4217 code: three capital letters 
 
 class StockPartSchema(Schema):
     kind = fields.String(required=True, validate=OneOf(KINDS))
-    value = StrictFloat(required=True, validate=Range(min=1e-15, max=1e12))
-    tolerance_pct = StrictFloat(required=True, validate=Range(min=0, max=100))
+    value = StrictFloat(validate=Range(min=1e-15, max=1e12))
+    tolerance_pct = StrictFloat(validate=Range(min=0, max=100))
     package = fields.String(required=True, validate=Length(min=1, max=80))
     dielectric = fields.String(validate=OneOf(sorted(DIELECTRICS)))
     voltage_v = StrictFloat(validate=Range(min=0, max=10_000, min_inclusive=False))
+    opamp_id = fields.String(validate=Length(min=1, max=80))
     internal_pn = fields.String(required=True, validate=Length(min=1, max=80))
     manufacturer = fields.String(load_default="", validate=Length(max=80))
     mpn = fields.String(load_default="", validate=Length(max=80))
     unit_cost = StrictFloat(validate=Range(min=0, max=1e9))
 
+    #: kind -> (required fields, refused fields) beyond kind, package and internal_pn.
+    _FIELDS = {
+        RESISTOR: (("value", "tolerance_pct"), ("dielectric", "voltage_v", "opamp_id")),
+        CAPACITOR: (("value", "tolerance_pct", "dielectric", "voltage_v"), ("opamp_id",)),
+        OPAMP: ((), ("value", "tolerance_pct", "dielectric", "voltage_v")),
+        CONNECTOR: ((), ("value", "tolerance_pct", "dielectric", "voltage_v", "opamp_id")),
+    }
+
     @validates_schema
     def _by_kind(self, data, **kwargs):
-        if data.get("kind") == CAPACITOR:
-            for key in ("dielectric", "voltage_v"):
-                if key not in data:
-                    raise ValidationError("required for a capacitor", key)
-        if data.get("kind") == RESISTOR:
-            for key in ("dielectric", "voltage_v"):
-                if key in data:
-                    raise ValidationError("only capacitors have it", key)
+        kind = data.get("kind")
+        if kind not in self._FIELDS:
+            return
+        required, refused = self._FIELDS[kind]
+        for key in required:
+            if key not in data:
+                raise ValidationError(f"required for a {kind}", key)
+        for key in refused:
+            if key in data:
+                raise ValidationError(f"a {kind} has no {key}", key)
+        if kind == OPAMP and not (data.get("mpn") or data.get("opamp_id")):
+            raise ValidationError("an opamp needs its mpn or its catalog opamp_id", "mpn")
 
     @post_load
     def _make(self, data, **kwargs) -> StockPart:
@@ -51,11 +64,12 @@ class PartsLibraryFileSchema(Schema):
 
 class StockPartOutSchema(Schema):
     kind = fields.String()
-    value = fields.Float()
-    tolerance_pct = fields.Float()
+    value = OutFloat()
+    tolerance_pct = OutFloat()
     package = fields.String()
     dielectric = fields.String(allow_none=True)
     voltage_v = OutFloat()
+    opamp_id = fields.String(allow_none=True)
     internal_pn = fields.String()
     manufacturer = fields.String()
     mpn = fields.String()

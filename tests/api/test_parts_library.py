@@ -113,21 +113,21 @@ def test_every_export_shows_the_internal_part_numbers(demo_client, strict_json):
     pn_of = {}
     for row in rows:
         refs = row["Reference"].split(",")
-        if refs[0][0] in "RC":
-            # the invented demo stock covers every resistor and capacitor of this design
-            assert row["Stocked"] == "yes" and row["Internal PN"].startswith("GC-"), row
+        # the invented demo stock covers every line of this design
+        assert row["Stocked"] == "yes" and row["Internal PN"].startswith("GC-"), row
+        unit, ext = Decimal(row["Unit cost"]), Decimal(row["Extended cost"])
+        assert ext == unit * int(row["Qty"])  # exact decimal arithmetic
+        if refs[0][0] in "RCJ":
             assert row["Manufacturer"] == "Invented Co." and row["MPN"]
-            unit, ext = Decimal(row["Unit cost"]), Decimal(row["Extended cost"])
-            assert ext == unit * int(row["Qty"])  # exact decimal arithmetic
-            pn_of.update({ref: row["Internal PN"] for ref in refs})
-        else:  # op-amp packages and connectors are not library kinds
-            assert row["Stocked"] == "no" and row["Internal PN"] == ""
-    assert len(pn_of) >= 15
+        else:  # the archetype op-amp: stocked by catalog id, no MPN (not a real part)
+            assert row["Value"] == "gc-cmos-rr-10m" and row["MPN"] == ""
+            assert row["Internal PN"] == "GC-U-CMOS-RR-10M"
+        pn_of.update({ref: row["Internal PN"] for ref in refs})
+    assert len(pn_of) == 20
     total = sum(Decimal(r["Extended cost"]) for r in rows if r["Extended cost"])
 
     design = strict_json(demo_client.post("/v1/designs", json=README_EXAMPLE).data)
-    assert design["bom_cost"] == {"currency": "EUR", "total": float(total),
-                                  "unpriced_lines": sum(1 for r in rows if not r["Unit cost"])}
+    assert design["bom_cost"] == {"currency": "EUR", "total": float(total), "unpriced_lines": 0}
     assert not [w for w in design["warnings"] if w["code"] == "unstocked_parts"]
 
     # xlsx read back by python-calamine: the same numbers per line and a Total row
@@ -140,7 +140,7 @@ def test_every_export_shows_the_internal_part_numbers(demo_client, strict_json):
             assert pn_of.get(ref, "") == line[col["Internal PN"]]
     assert total_row[col["Reference"]] == "Total"
     assert total_row[col["Extended cost"]] == pytest.approx(float(total), rel=1e-12)
-    assert "EUR" in total_row[col["Description"]]
+    assert "EUR" in total_row[col["Description"]] and "0 line(s)" in total_row[col["Description"]]
 
     # KiCad .net read back by kinparse, .xml by kicad-netlist-reader
     text = demo_client.post("/v1/exports/netlist.net", json=README_EXAMPLE).get_data(as_text=True)
@@ -184,6 +184,47 @@ def test_unmatched_lines_say_so_in_a_column_and_a_warning(tmp_path, strict_json)
     rows = {r["Reference"]: r for r in _csv_rows(client, README_EXAMPLE)}
     assert rows["R1"]["Internal PN"] == "GC-R-8K45-5"
     assert rows["C1,C3,C5"]["Internal PN"] == "GC-C-27N-6V3"
+
+
+def test_opamps_and_connectors_match_by_mpn_id_and_package(tmp_path, strict_json):
+    from service.engine.model.catalog import BUILTIN_OPAMPS
+
+    cmos = next(op for op in BUILTIN_OPAMPS if op.id == "gc-cmos-rr-10m").to_dict()
+    with_mpn = {**cmos, "id": None, "manufacturer": "Invented Co.", "mpn": "INV-OA-10"}
+    soic8 = "SOIC-8_3.9x4.9mm_P1.27mm"
+    stock = {"currency": "EUR", "parts": [
+        {"kind": "opamp", "opamp_id": "gc-cmos-rr-10m", "package": soic8,
+         "internal_pn": "GC-U-BY-ID", "unit_cost": 0.4},
+        {"kind": "opamp", "mpn": "INV-OA-10", "package": soic8, "internal_pn": "GC-U-BY-MPN"},
+        {"kind": "opamp", "opamp_id": "gc-cmos-rr-10m", "package": "SOIC-14_3.9x8.7mm_P1.27mm",
+         "internal_pn": "GC-U-WRONG-PACKAGE"},
+        {"kind": "connector", "package": "PinHeader_1x02_P2.54mm_Vertical",
+         "internal_pn": "GC-J-2"},
+    ]}
+    client = _app(_write(tmp_path, stock)).test_client()
+    rows = {r["Reference"]: r for r in _csv_rows(client, README_EXAMPLE)}
+    assert rows["U1"]["Internal PN"] == "GC-U-BY-ID" and rows["U1"]["Unit cost"] == "0.4"
+    assert {rows[j]["Internal PN"] for j in ("J1", "J2", "J3")} == {"GC-J-2"}
+    rows = {r["Reference"]: r for r in _csv_rows(client, {**README_EXAMPLE, "opamp": with_mpn})}
+    assert rows["U1"]["Internal PN"] == "GC-U-BY-MPN" and rows["U1"]["MPN"] == "INV-OA-10"
+    # a library that lists op-amps warns about an op-amp it does not stock
+    other = {**cmos, "id": "gc-other"}
+    design = strict_json(client.post("/v1/designs", json={**README_EXAMPLE, "opamp": other}).data)
+    message = next(w["message"] for w in design["warnings"] if w["code"] == "unstocked_parts")
+    assert "U1" in message and "J1" not in message
+
+
+@pytest.mark.parametrize("entry, word", [
+    ({"kind": "opamp", "package": "SOIC-8", "internal_pn": "GC-U"}, "mpn"),
+    ({"kind": "opamp", "package": "SOIC-8", "opamp_id": "x", "value": 1.0,
+      "internal_pn": "GC-U"}, "value"),
+    ({"kind": "connector", "package": "Hdr", "tolerance_pct": 5, "internal_pn": "GC-J"},
+     "tolerance_pct"),
+    ({"kind": "resistor", "package": "0603", "internal_pn": "GC-R"}, "value"),
+])
+def test_entries_are_checked_by_kind(tmp_path, entry, word):
+    with pytest.raises(RuntimeError, match=word):
+        _app(_write(tmp_path, {"currency": "EUR", "parts": [entry]}))
 
 
 def test_design_without_library_has_null_cost(client, strict_json):
