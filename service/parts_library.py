@@ -1,7 +1,8 @@
 """The stocked-parts library of a running app (``GAINCHAIN_PARTS_LIBRARY``, JSON).
 
-File format: ``{"currency": "EUR", "parts": [{"kind": "resistor" | "capacitor", "value",
-"tolerance_pct", "package", "dielectric" and "voltage_v" (capacitors only), "internal_pn",
+File format: ``{"currency": "EUR", "parts": [{"kind": "resistor" | "capacitor" | "opamp" |
+"connector", "package", "internal_pn", "value" and "tolerance_pct" (resistors and
+capacitors), "dielectric" and "voltage_v" (capacitors), "opamp_id" or "mpn" (op-amps),
 optional "manufacturer", "mpn", "unit_cost"}, ...]}``, validated by ``schemas.parts``;
 internal part numbers are unique. A bad file stops start-up with a message naming the entry
 (as ``service.catalog_state`` does for the op-amp catalog). Without the variable there is
