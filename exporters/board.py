@@ -41,6 +41,7 @@ from dataclasses import dataclass, field
 
 from exporters.values import eda_value, natural_key
 from service.engine.model.circuit import INVERTING, SINGLE, Circuit
+from service.engine.model.identity import design_id
 from service.engine.model.spares import spare_units
 
 SIZES = ("0603", "0805", "1206")
@@ -150,7 +151,7 @@ class Board:
     dc_v: dict = field(hash=False)  # net name -> DC voltage (V)
     ref_net: str = "GND"
     load_return_net: str = "GND"
-    design_id: str = ""
+    design_id: str = ""  # service.engine.model.identity.design_id of the circuit
 
     def part(self, ref: str) -> Part:
         return next(p for p in self.parts if p.ref == ref)
@@ -206,8 +207,9 @@ def _group_dc(members: set[str], supply, v_ref: float) -> float:
     return 0.0  # IN and OUT: the source and the load are ground referenced
 
 
-def design_id(circuit: Circuit, name: str) -> str:
-    """Stable id of a design: SHA-256 of its canonical JSON (name + circuit)."""
+def tstamp_seed(circuit: Circuit, name: str) -> str:
+    """Seed of the placed units' UUIDs: SHA-256 of the canonical JSON of name + circuit
+    (the design identity proper is ``Board.design_id``, from the circuit alone)."""
     blob = json.dumps({"name": name, "circuit": circuit.to_dict()}, sort_keys=True,
                       separators=(",", ":"))
     return hashlib.sha256(blob.encode("utf-8")).hexdigest()[:32]
@@ -355,7 +357,7 @@ def build_board(circuit: Circuit, *, name: str = "", size: str = DEFAULT_SIZE,
         dc_v[rank[1]] = _group_dc(set(members), circuit.supply, v_ref)
 
     # ---- parts ----------------------------------------------------------------------
-    did = design_id(circuit, name)
+    did = tstamp_seed(circuit, name)
     counters = {"R": 0, "C": 0}
     parts: list[Part] = []
     r_tol = f"{resistor_tolerance_pct:g}%"
@@ -455,4 +457,4 @@ def build_board(circuit: Circuit, *, name: str = "", size: str = DEFAULT_SIZE,
     return Board(name=name, circuit=circuit, parts=tuple(parts), units=tuple(units),
                  nets={net: tuple(nets[net]) for net in order},
                  dc_v={net: dc_v[net] for net in order}, ref_net=net_of[ref_node],
-                 load_return_net=net_of[load_return], design_id=did)
+                 load_return_net=net_of[load_return], design_id=design_id(circuit))

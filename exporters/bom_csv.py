@@ -8,16 +8,20 @@ from __future__ import annotations
 
 import csv
 import io
+from decimal import Decimal
 
 from exporters.board import Board
 from exporters.bom import COLUMNS, bom_lines
+from exporters.stock import PartsLibrary
 
 
-def bom_csv(board: Board) -> str:
-    """The BOM as CSV text (UTF-8 when encoded; no byte-order mark)."""
+def bom_csv(board: Board, library: PartsLibrary | None = None) -> str:
+    """The BOM as CSV text (UTF-8 when encoded; no byte-order mark). Costs are written as
+    plain decimals (``0.0036``), empty when unknown."""
     buf = io.StringIO()
     writer = csv.writer(buf, quoting=csv.QUOTE_ALL, lineterminator="\n")
     writer.writerow(COLUMNS)
-    for row in bom_lines(board):
-        writer.writerow([str(cell) for cell in row])
+    for row in bom_lines(board, library):
+        writer.writerow([format(cell, "f") if isinstance(cell, Decimal) else str(cell)
+                         for cell in row])
     return buf.getvalue()

@@ -1,7 +1,9 @@
 """Spreadsheet BOM (openpyxl): sheets BOM, Design and Response, byte-identical per request.
 
 * ``BOM``: the CSV's lines (:func:`exporters.bom.bom_lines`), bold frozen header, autofilter,
-  widths from the content, ``Qty`` stored as a number. Text cells are written with
+  widths from the content, ``Qty`` and costs stored as numbers, then a bold ``Total`` row
+  (Qty summed; ``Extended cost`` the sum of the priced lines, empty when none is priced;
+  the description names the currency and the count of unpriced lines). Text cells are written with
   ``data_type = "s"`` (openpyxl would store a leading ``=`` as a formula) after the OWASP
   neutralisation of :func:`exporters.names.cell_text`.
 * ``Design``: the cautions line, target vs ideal vs as-built, the per-stage table, headroom,
@@ -9,6 +11,9 @@
   of the circuit from the engine).
 * ``Response``: frequency, gain (dB) and phase (degrees) of Vout/Vs from the engine's nodal
   solution, with a native scatter chart on a logarithmic frequency axis.
+
+The design identity (``Board.design_id``) is the workbook's document identifier
+(``dc:identifier`` of ``docProps/core.xml``) and a ``Design ID`` column of the BOM sheet.
 
 Same bytes for the same input (PLM systems detect revisions by content hash): the document
 dates are fixed (``date`` when given, else 1980-01-01, the zip format's epoch) and the zip is
@@ -22,6 +27,7 @@ import io
 import math
 import re
 import zipfile
+from decimal import Decimal
 
 from openpyxl import Workbook
 from openpyxl.chart import Reference, ScatterChart, Series
@@ -29,7 +35,7 @@ from openpyxl.styles import Font
 from openpyxl.utils import get_column_letter
 
 from exporters.board import Board
-from exporters.bom import COLUMNS, bom_lines
+from exporters.bom import COLUMNS, EXTENDED_COST_COLUMN, QTY_COLUMN, bom_lines, bom_total
 from exporters.names import cell_text
 from exporters.response import (
     BandEdges,
@@ -38,6 +44,7 @@ from exporters.response import (
     edges_from_report,
     response_table,
 )
+from exporters.stock import PartsLibrary
 
 XLSX_MIME = "application/vnd.openxmlformats-officedocument.spreadsheetml.sheet"
 CAUTIONS = ("A design aid, not a certified design: prototype and measure before use; follow "
@@ -48,16 +55,19 @@ RESPONSE_POINTS_PER_DECADE = 20
 _BOLD = Font(bold=True)
 
 
-def bom_xlsx(board: Board, *, report: dict | None = None, date: dt.date | None = None) -> bytes:
-    """The workbook as bytes. ``report`` is a design response (JSON form) or None."""
+def bom_xlsx(board: Board, *, report: dict | None = None, date: dt.date | None = None,
+             library: PartsLibrary | None = None) -> bytes:
+    """The workbook as bytes. ``report`` is a design response (JSON form) or None;
+    ``library`` the stocked parts the BOM lines are matched against (or None)."""
     wb = Workbook()
-    _bom_sheet(wb.active, board)
+    _bom_sheet(wb.active, board, library)
     edges = _edges(board, report)
     _design_sheet(wb.create_sheet("Design"), board, report, edges)
     _response_sheet(wb.create_sheet("Response"), board, edges)
     stamp = NO_DATE if date is None else dt.datetime(date.year, date.month, date.day)
     wb.properties.creator = "gainchain"
     wb.properties.created = stamp
+    wb.properties.identifier = board.design_id
     buf = io.BytesIO()
     wb.save(buf)
     return _fixed_zip(buf.getvalue(), stamp)
@@ -76,6 +86,8 @@ def _put(ws, row: int, col: int, value):
         return cell
     if isinstance(value, bool):
         cell.value = value
+    elif isinstance(value, Decimal):
+        cell.value = float(value)
     elif isinstance(value, int | float):
         cell.value = value if math.isfinite(value) else None
     else:
@@ -94,14 +106,25 @@ def _widths(ws, cap: int = 60) -> None:
         ws.column_dimensions[get_column_letter(col)].width = min(cap, width + 2)
 
 
-def _bom_sheet(ws, board: Board) -> None:
+def _bom_sheet(ws, board: Board, library: PartsLibrary | None = None) -> None:
     ws.title = "BOM"
     for col, name in enumerate(COLUMNS, start=1):
         _put(ws, 1, col, name).font = _BOLD
-    rows = bom_lines(board)
+    rows = bom_lines(board, library)
     for r, row in enumerate(rows, start=2):
         for col, value in enumerate(row, start=1):
             _put(ws, r, col, value)
+    total = bom_total(rows)
+    unpriced = sum(1 for row in rows if not isinstance(row[EXTENDED_COST_COLUMN], Decimal))
+    last = len(rows) + 2
+    note = "Total"
+    if library is not None:
+        note = f"Total in {library.currency}; {unpriced} line(s) without a price"
+    _put(ws, last, 1, "Total").font = _BOLD
+    _put(ws, last, QTY_COLUMN + 1, sum(row[QTY_COLUMN] for row in rows)).font = _BOLD
+    _put(ws, last, COLUMNS.index("Description") + 1, note).font = _BOLD
+    if total is not None:
+        _put(ws, last, EXTENDED_COST_COLUMN + 1, total).font = _BOLD
     ws.freeze_panes = "A2"
     ws.auto_filter.ref = f"A1:{get_column_letter(len(COLUMNS))}{len(rows) + 1}"
     _widths(ws)

@@ -18,6 +18,7 @@ from exporters.kicad_xml import kicad_xml
 from exporters.names import safe_filename
 from exporters.response import edges_from_report
 from exporters.spice import spice_deck
+from exporters.stock import PartsLibrary
 from service.engine.model.circuit import Circuit
 
 #: kind -> Content-Type of the download.
@@ -41,8 +42,10 @@ class ExportFile:
 def export(kind: str, circuit: Circuit, *, name: str | None = None, report: dict | None = None,
            size: str = DEFAULT_SIZE, date: dt.date | None = None,
            resistor_tolerance_pct: float = 1.0,
-           capacitor_tolerance_pct: float = 10.0) -> ExportFile:
-    """Render ``circuit`` (and, when given, its design response ``report``) as ``kind``.
+           capacitor_tolerance_pct: float = 10.0,
+           library: PartsLibrary | None = None) -> ExportFile:
+    """Render ``circuit`` (and, when given, its design response ``report``) as ``kind``;
+    the BOMs match their lines against ``library`` (stocked parts) when one is given.
 
     :raise ValueError: unknown ``kind`` or ``size``.
     """
@@ -53,15 +56,15 @@ def export(kind: str, circuit: Circuit, *, name: str | None = None, report: dict
                         capacitor_tolerance_pct=capacitor_tolerance_pct)
     date_text = None if date is None else date.isoformat()
     if kind == "bom.csv":
-        data = bom_csv(board).encode("utf-8")
+        data = bom_csv(board, library).encode("utf-8")
     elif kind == "bom.xlsx":
-        data = bom_xlsx(board, report=report, date=date)
+        data = bom_xlsx(board, report=report, date=date, library=library)
     elif kind == "netlist.cir":
         as_built = ((report or {}).get("performance") or {}).get("as_built")
         data = spice_deck(board, edges=edges_from_report(as_built)).encode("utf-8")
     elif kind == "netlist.net":
-        data = kicad_net(board, date=date_text).encode("utf-8")
+        data = kicad_net(board, date=date_text, library=library).encode("utf-8")
     else:
-        data = kicad_xml(board, date=date_text)
+        data = kicad_xml(board, date=date_text, library=library)
     return ExportFile(filename=f"{safe_filename(name)}-{kind}", mimetype=MIME_TYPES[kind],
                       data=data)

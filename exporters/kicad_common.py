@@ -3,15 +3,26 @@
 from __future__ import annotations
 
 from exporters.board import PINOUTS, Board, Part
+from exporters.stock import PartsLibrary, match
 
 TOOL = "gainchain 0.1.0"
+#: Title-block comment 1 of the root sheet in both netlists: this prefix and the design id.
+DESIGN_ID_COMMENT = "design_id "
 #: Fields written per component, in this order; empty fields are left out.
-FIELD_ORDER = ("Description", "Tolerance", "Voltage", "Dielectric", "Manufacturer", "MPN")
+FIELD_ORDER = ("Description", "Tolerance", "Voltage", "Dielectric", "Manufacturer", "MPN",
+               "Internal PN")
 
 
-def comp_fields(part: Part) -> list[tuple[str, str]]:
-    """Non-empty BOM fields of a part (the ones KiCad keeps as symbol fields)."""
+def comp_fields(part: Part, library: PartsLibrary | None = None,
+                opamp_id: str | None = None) -> list[tuple[str, str]]:
+    """Non-empty BOM fields of a part (the ones KiCad keeps as symbol fields); a part that
+    matches a stocked part of ``library`` takes its manufacturer, MPN and internal PN."""
     fields = dict(part.fields)
+    stock = match(part, library, opamp_id=opamp_id)
+    if stock is not None:
+        fields["Manufacturer"] = stock.manufacturer or fields.get("Manufacturer", "")
+        fields["MPN"] = stock.mpn or fields.get("MPN", "")
+        fields["Internal PN"] = stock.internal_pn
     return [(name, fields[name]) for name in FIELD_ORDER[1:] if fields.get(name)]
 
 

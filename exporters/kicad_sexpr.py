@@ -3,27 +3,34 @@
 Layout and rules from the format brief (``eda-formats.md`` sec. 2): the first line holds
 ``(export`` and a space, ``(version "E")`` first, every atom quoted through the one escaper
 :func:`exporters.names.sx`, deterministic uuid5 time stamps per placed unit, net codes from 1,
-no ``units``/``groups``/``variants`` items. No date unless one is given.
+no ``units``/``groups``/``variants`` items. No date unless one is given. The design identity
+sits in the root sheet's title block, comment 1: ``design_id <id>`` (KiCad's title-block
+comment fields).
 """
 
 from __future__ import annotations
 
 from exporters.board import Board
-from exporters.kicad_common import TOOL, comp_fields
+from exporters.kicad_common import DESIGN_ID_COMMENT, TOOL, comp_fields
 from exporters.names import sx
+from exporters.stock import PartsLibrary
 
 
-def kicad_net(board: Board, *, date: str | None = None) -> str:
+def kicad_net(board: Board, *, date: str | None = None,
+              library: PartsLibrary | None = None) -> str:
     """The ``.net`` file as text (LF line ends)."""
     design = f"(source {sx(board.name or 'gainchain design')})"
     if date:
         design += f" (date {sx(date)})"
     design += f" (tool {sx(TOOL)})"
+    design += (f' (sheet (number "1") (name "/") (tstamps "/") (title_block '
+               f'(title {sx(board.name or "gainchain design")}) '
+               f'(comment (number "1") (value {sx(DESIGN_ID_COMMENT + board.design_id)}))))')
     lines = ['(export (version "E")', f"  (design {design})", "  (components"]
     for part in board.parts:
         lines.append(f"    (comp (ref {sx(part.ref)}) (value {sx(part.value)}) "
                      f"(footprint {sx(part.footprint)})")
-        fields = comp_fields(part)
+        fields = comp_fields(part, library, board.circuit.opamp.id)
         if fields:
             lines.append("      (fields " + " ".join(
                 f"(field (name {sx(name)}) {sx(value)})" for name, value in fields) + ")")

@@ -4,7 +4,8 @@ Same tree as the ``.net`` (format brief sec. 3): ``export version="E"`` > ``desi
 ``components`` (value, footprint, datasheet ``~``, fields, libsource, sheetpath, tstamps),
 ``libparts`` (one per libsource, with pins), ``nets`` (code from 1, class ``Default``).
 ElementTree escapes ``& < > "``; characters XML 1.0 forbids are dropped first
-(:func:`exporters.names.xml_text`). No date unless one is given.
+(:func:`exporters.names.xml_text`). No date unless one is given. The design identity sits in
+the root sheet's title block: ``<comment number="1" value="design_id <id>"/>``.
 """
 
 from __future__ import annotations
@@ -12,8 +13,9 @@ from __future__ import annotations
 import xml.etree.ElementTree as ET
 
 from exporters.board import Board
-from exporters.kicad_common import TOOL, comp_fields, libparts
+from exporters.kicad_common import DESIGN_ID_COMMENT, TOOL, comp_fields, libparts
 from exporters.names import xml_text
+from exporters.stock import PartsLibrary
 
 
 def _sub(parent: ET.Element, tag: str, text: str | None = None, **attrib) -> ET.Element:
@@ -23,7 +25,8 @@ def _sub(parent: ET.Element, tag: str, text: str | None = None, **attrib) -> ET.
     return el
 
 
-def kicad_xml(board: Board, *, date: str | None = None) -> bytes:
+def kicad_xml(board: Board, *, date: str | None = None,
+              library: PartsLibrary | None = None) -> bytes:
     """The ``.xml`` file as UTF-8 bytes with an XML declaration."""
     root = ET.Element("export", {"version": "E"})
     design = _sub(root, "design")
@@ -31,6 +34,10 @@ def kicad_xml(board: Board, *, date: str | None = None) -> bytes:
     if date:
         _sub(design, "date", date)
     _sub(design, "tool", TOOL)
+    sheet = _sub(design, "sheet", number="1", name="/", tstamps="/")
+    title_block = _sub(sheet, "title_block")
+    _sub(title_block, "title", board.name or "gainchain design")
+    _sub(title_block, "comment", number="1", value=DESIGN_ID_COMMENT + board.design_id)
     comps = _sub(root, "components")
     for part in board.parts:
         comp = _sub(comps, "comp", ref=part.ref)
@@ -38,7 +45,7 @@ def kicad_xml(board: Board, *, date: str | None = None) -> bytes:
         _sub(comp, "footprint", part.footprint)
         _sub(comp, "datasheet", "~")
         _sub(comp, "description", part.description)
-        fields = comp_fields(part)
+        fields = comp_fields(part, library, board.circuit.opamp.id)
         if fields:
             fel = _sub(comp, "fields")
             for name, value in fields:

@@ -14,6 +14,7 @@ The deck reproduces the circuit model exactly (issue 2, "The circuit object and 
   f_high, and ``.print ac`` of ``vdb`` and ``vp`` (radians) of the voltage across RLOAD, so
   ``ngspice -b deck.cir`` prints the response as is.
 
+The second line is the comment ``* design_id <id>`` (the design identity, ``Board.design_id``).
 No ``.control`` block, ``.include``, ``.lib`` or ``shell`` is ever written; the only
 user-chosen text (the design name, the op-amp id) passes :func:`exporters.names.spice_title`.
 """
@@ -46,6 +47,7 @@ def spice_deck(board: Board, *, edges: BandEdges | None = None,
     out_ret = spice_node(board.load_return_net)
     lines = [
         spice_title(board.name, default="gainchain design"),
+        f"* design_id {board.design_id}",
         "* Small-signal SPICE deck written by gainchain from the circuit model.",
         "* A design aid: prototype and measure; follow applicable standards.",
         f"* op-amp: {spice_title(c.opamp.mpn or c.opamp.id or 'generic', default='generic')}",

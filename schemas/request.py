@@ -114,6 +114,9 @@ class ComponentsSchema(Schema):
     max_capacitor_f = LimitsSchema._declared_fields["max_capacitor_f"]
     min_resistor_ohm = LimitsSchema._declared_fields["min_resistor_ohm"]
     max_resistor_ohm = LimitsSchema._declared_fields["max_resistor_ohm"]
+    stocked_only = StrictBoolean(load_default=False, metadata={
+        "description": "Use only the parts library's values of the series "
+                       "(GAINCHAIN_PARTS_LIBRARY, GET /v1/parts)."})
 
     @post_load
     def _make(self, data, **kwargs) -> Components:
@@ -177,6 +180,63 @@ class DesignRequestSchema(Schema):
     response = fields.Nested(ResponseOptionsSchema)
     temperature_k = StrictFloat(load_default=300.0, validate=Range(min=1, max=1000))
     supply_rejection_hz = StrictFloat(validate=F_RANGE)
+
+
+#: Most op-amps one exploration may name.
+MAX_EXPLORATION_OPAMPS = 200
+
+
+class OpAmpChoicesField(fields.Field):
+    """A list of 1..``MAX_EXPLORATION_OPAMPS`` catalog ids and/or op-amp objects."""
+
+    default_error_messages = {
+        "invalid": "Give a list of catalog ids and/or op-amp objects.",
+        "length": f"Give 1 to {MAX_EXPLORATION_OPAMPS} op-amps.",
+    }
+
+    def _deserialize(self, value, attr, data, **kwargs):
+        if not isinstance(value, list):
+            raise self.make_error("invalid")
+        if not 1 <= len(value) <= MAX_EXPLORATION_OPAMPS:
+            raise self.make_error("length")
+        out, errors = [], {}
+        item_field = OpAmpField()
+        for i, item in enumerate(value):
+            try:
+                out.append(item_field.deserialize(item))
+            except ValidationError as err:
+                errors[i] = err.messages
+        if errors:
+            raise ValidationError(errors)
+        return out
+
+
+class StageCountsField(fields.Field):
+    """``"auto"`` or a list of distinct integers 1..12."""
+
+    default_error_messages = {"invalid": f'Give "auto" or a list of distinct integers from 1 '
+                                         f'to {MAX_STAGES}.'}
+
+    def _deserialize(self, value, attr, data, **kwargs):
+        if value == "auto":
+            return None
+        if not isinstance(value, list) or not value or len(set(map(repr, value))) != len(value):
+            raise self.make_error("invalid")
+        for n in value:
+            if isinstance(n, bool) or not isinstance(n, int) or not 1 <= n <= MAX_STAGES:
+                raise self.make_error("invalid")
+        return sorted(value)
+
+
+class ExplorationRequestSchema(DesignRequestSchema):
+    """A design request whose ``opamp`` may be omitted (the whole catalog) or a list, and
+    whose ``stages`` is "auto" or a list of counts. ``strict`` may only be false: every
+    candidate carries its own status."""
+
+    opamp = OpAmpChoicesField(load_default=None)
+    stages = StageCountsField(load_default=None)
+    strict = StrictBoolean(load_default=False, validate=OneOf(
+        [False], error="explorations list unmet candidates with their status; give false"))
 
 
 class AnalysisToleranceSchema(ToleranceOptionsSchema):

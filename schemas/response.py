@@ -187,8 +187,22 @@ class _AnalysesBlocks(Schema):
     response = fields.Nested(ResponseBlockSchema)
 
 
+_DESIGN_ID = {"description": "SHA-256 (hex) of the canonical circuit JSON and the service's "
+                             "major version: same circuit, same id (README \"Design identity\")"}
+
+
+class BomCostSchema(Schema):
+    currency = fields.String(metadata={"description": "ISO 4217 code of the parts library"})
+    total = OutFloat(metadata={"description": "sum of the priced BOM lines; null when none is "
+                                              "priced"})
+    unpriced_lines = fields.Integer()
+
+
 class DesignResponseSchema(_AnalysesBlocks):
     name = fields.String(allow_none=True)
+    design_id = fields.String(metadata=_DESIGN_ID)
+    bom_cost = fields.Nested(BomCostSchema, allow_none=True, metadata={
+        "description": "null without a parts library (GAINCHAIN_PARTS_LIBRARY)"})
     status = fields.String(metadata={"enum": ["meets_target", "target_not_met"]})
     shortfalls = fields.List(fields.Nested(ShortfallSchema))
     target = fields.Nested(TargetOutSchema)
@@ -207,6 +221,7 @@ class DesignResponseSchema(_AnalysesBlocks):
 
 class AnalysisResponseSchema(_AnalysesBlocks):
     name = fields.String(allow_none=True)
+    design_id = fields.String(metadata=_DESIGN_ID)
     status = fields.String(metadata={"enum": ["meets_target", "target_not_met"]})
     shortfalls = fields.List(fields.Nested(ShortfallSchema))
     performance = fields.Nested(AnalysisPerformanceSchema)
@@ -216,3 +231,37 @@ class AnalysisResponseSchema(_AnalysesBlocks):
     bias = fields.Nested(BiasReportSchema)
     warnings = fields.List(fields.Nested(WarningSchema))
     cautions = fields.List(fields.String())
+
+
+class ExplorationCandidateSchema(Schema):
+    opamp_id = fields.String(allow_none=True, metadata={
+        "description": "catalog id, or the op-amp object's id (null when it has none)"})
+    stage_count = fields.Integer()
+    status = fields.String(metadata={"enum": ["meets_target", "target_not_met"]})
+    shortfalls = fields.List(fields.Nested(ShortfallSchema))
+    design_id = fields.String(metadata=_DESIGN_ID)
+    part_count = fields.Integer(metadata={"description": "placed parts of the board as "
+                                                         "exported (every BOM reference)"})
+    opamp_packages = fields.Integer()
+    output_noise_rms_v = OutFloat(metadata={"description": "noise.output_rms_v.band"})
+    input_noise_rms_v = OutFloat(metadata={"description": "noise.input_rms_v"})
+    supply_current_a = OutFloat(metadata={"description": "DC current from the positive rail"})
+    yield_ = fields.Raw(data_key="yield", allow_none=True, metadata={
+        "description": "the design's yield block (null when the design has none)"})
+    bom_cost = fields.Nested(BomCostSchema, allow_none=True)
+    pareto = fields.Boolean()
+    rank = fields.Integer(metadata={"description": "1 = best; the list is in rank order"})
+
+
+class ExplorationSkippedSchema(Schema):
+    opamp_id = fields.String(allow_none=True)
+    stage_count = fields.Integer(allow_none=True)
+    detail = fields.String()
+
+
+class ExplorationResponseSchema(Schema):
+    target = fields.Nested(TargetOutSchema)
+    candidates = fields.List(fields.Nested(ExplorationCandidateSchema))
+    skipped = fields.List(fields.Nested(ExplorationSkippedSchema), metadata={
+        "description": "op-amps (and stage counts) the request cannot be designed with, "
+                       "and why"})

@@ -26,9 +26,24 @@ def create_app(config=None) -> Flask:
 
     load_catalog_into(app)
 
-    from service.blueprints import analyses, batch, designs, exports, health, opamps, plots
+    from service.parts_library import load_library_into
 
-    for module in (health, opamps, designs, batch, analyses, exports, plots):
+    load_library_into(app)
+
+    from service.blueprints import (
+        analyses,
+        batch,
+        designs,
+        explorations,
+        exports,
+        health,
+        opamps,
+        parts,
+        plots,
+    )
+
+    for module in (health, opamps, parts, designs, batch, explorations, analyses, exports,
+                   plots):
         app.register_blueprint(module.bp)
 
     from service import ops

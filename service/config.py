@@ -62,6 +62,8 @@ def from_environment(env=None) -> dict:
         "GAINCHAIN_OPAMP_CATALOG": env.get("GAINCHAIN_OPAMP_CATALOG") or None,
         # "extend" (default) adds the file's entries to the built-in ones; "replace" uses only them.
         "GAINCHAIN_OPAMP_CATALOG_MODE": env.get("GAINCHAIN_OPAMP_CATALOG_MODE", "extend"),
+        # Path of the organisation's stocked-parts JSON file (internal part numbers, prices).
+        "GAINCHAIN_PARTS_LIBRARY": env.get("GAINCHAIN_PARTS_LIBRARY") or None,
         "GAINCHAIN_MAX_BODY_BYTES": max_body,
         "MAX_CONTENT_LENGTH": max_body,
         # API keys: comma-separated list and/or a file with one key per line (blank and

@@ -88,7 +88,8 @@ class Operation:
     path_enums: dict = field(default_factory=dict)  # path parameter -> "module:TUPLE" of values
     query: tuple = ()  # OpenAPI parameter objects for the query string (values may be refs)
     request_example: dict | None = None  # a valid body (docs, client generators, the fuzzer)
-    operation_id: str = ""  # published operationId (empty: derived from the method and path)
+    #: What the operation does, camelCase (client generators name their functions after it).
+    operation_id: str = ""
 
 
 
@@ -115,22 +116,28 @@ _SCHEMATIC_DESCRIPTION = (
 
 OPERATIONS: tuple[Operation, ...] = (
     Operation("/healthz", "GET", "Liveness probe: the process answers.", "meta",
-              {200: {JSON: "service.ops.meta:HealthSchema"}}, public=True),
+              {200: {JSON: "service.ops.meta:HealthSchema"}}, public=True,
+              operation_id="checkLiveness"),
     Operation("/readyz", "GET", "Readiness probe: the op-amp catalog is loaded.", "meta",
-              {200: {JSON: "service.ops.meta:ReadySchema"}}, errors=(503,), public=True),
+              {200: {JSON: "service.ops.meta:ReadySchema"}}, errors=(503,), public=True,
+              operation_id="checkReadiness"),
     Operation("/metrics", "GET", "Prometheus metrics (text exposition format).", "meta",
-              {200: {METRICS_TEXT: TEXT_BODY}}, public=True),
+              {200: {METRICS_TEXT: TEXT_BODY}}, public=True, operation_id="getMetrics"),
     Operation("/openapi.json", "GET", "This OpenAPI 3 description.", "meta",
-              {200: {JSON: ANY_OBJECT}}, public=True),
+              {200: {JSON: ANY_OBJECT}}, public=True, operation_id="getOpenApiDocument"),
     Operation("/v1/opamps", "GET", "List the op-amp catalog.", "opamps",
-              {200: {JSON: "schemas.opamp:OpAmpListSchema"}}),
+              {200: {JSON: "schemas.opamp:OpAmpListSchema"}}, operation_id="listOpamps"),
     Operation("/v1/opamps/<opamp_id>", "GET", "One op-amp of the catalog.", "opamps",
               {200: {JSON: "schemas.opamp:OpAmpOutSchema"}}, errors=(404,),
-              parameters={"opamp_id": "Catalog id (see GET /v1/opamps)."}),
+              parameters={"opamp_id": "Catalog id (see GET /v1/opamps)."},
+              operation_id="getOpamp"),
+    Operation("/v1/parts", "GET", "List the stocked-parts library (GAINCHAIN_PARTS_LIBRARY).",
+              "parts", {200: {JSON: "schemas.parts:PartsListSchema"}},
+              operation_id="listParts"),
     Operation("/v1/designs", "POST", "Design a cascade of gain stages for a target.", "designs",
               {200: {JSON: "schemas.response:DesignResponseSchema"}},
               request="schemas.request:DesignRequestSchema", errors=COMPUTE_ERRORS,
-              request_example=README_EXAMPLE),
+              request_example=README_EXAMPLE, operation_id="createDesign"),
     Operation("/v1/designs/batch", "POST", "Design up to 100 targets in one call.", "designs",
               {200: {JSON: {"type": "object", "additionalProperties": False,
                             "required": ["results"],
@@ -146,16 +153,33 @@ OPERATIONS: tuple[Operation, ...] = (
                            "type": "array", "maxItems": "service.blueprints.batch:MAX_BATCH",
                            "items": "schemas.request:DesignRequestSchema"}}},
               errors=COMPUTE_ERRORS, request_example={"requests": [README_EXAMPLE]},
+              operation_id="createDesignBatch",
               description="Results come in request order; a bad item gets a problem document "
                           "in its slot (status 4xx) and does not fail the others."),
     Operation("/v1/analyses", "POST", "Analyse a (possibly hand-edited) circuit.", "analyses",
               {200: {JSON: "schemas.response:AnalysisResponseSchema"}},
-              request="schemas.request:AnalysisRequestSchema", errors=COMPUTE_ERRORS),
+              request="schemas.request:AnalysisRequestSchema", errors=COMPUTE_ERRORS,
+              operation_id="analyseCircuit"),
+    Operation("/v1/explorations", "POST",
+              "Try a design request across op-amps and stage counts; rank the candidates.",
+              "designs", {200: {JSON: "schemas.response:ExplorationResponseSchema"}},
+              request="schemas.request:ExplorationRequestSchema", errors=COMPUTE_ERRORS,
+              request_example={k: v for k, v in README_EXAMPLE.items() if k != "opamp"},
+              operation_id="exploreDesigns",
+              description="opamp omitted: the whole catalog; or a list of catalog ids and/or "
+                          "op-amp objects (at most 200). stages: \"auto\" (the count POST "
+                          "/v1/designs picks) or a list of counts. One candidate per (op-amp, "
+                          "stage count), its design exactly what POST /v1/designs returns for "
+                          "that op-amp and stage count (same design_id); pareto marks the "
+                          "meeting candidates no other meeting candidate dominates on part "
+                          "count, input-referred noise, supply current and (with a priced "
+                          "parts library) BOM cost; candidates come in rank order."),
     Operation("/v1/exports/<kind>", "POST", "Export a design or a circuit as a file.", "exports",
               {200: {CSV: TEXT_BODY, XLSX: BINARY, TEXT: TEXT_BODY, XML: TEXT_BODY}},
               request={"anyOf": ["schemas.request:DesignRequestSchema",
                                  "service.openapi:ExportCircuitBodySchema"]},
               errors=COMPUTE_ERRORS + (404,), request_example=README_EXAMPLE,
+              operation_id="exportDesign",
               description="The body is a design request (designed first) or "
                           "{name, circuit}. bom.csv -> text/csv, bom.xlsx -> xlsx workbook, "
                           "netlist.cir -> SPICE deck (text/plain), netlist.net -> KiCad "
@@ -172,11 +196,11 @@ OPERATIONS: tuple[Operation, ...] = (
     Operation("/v1/plots/bode.svg", "POST", "Bode plot (SVG) of a design or a circuit.",
               "plots", {200: {SVG: TEXT_BODY}}, request=_PLOT_BODY, query=_PLOT_QUERY,
               errors=COMPUTE_ERRORS, description=_PLOT_DESCRIPTION,
-              request_example=README_EXAMPLE),
+              request_example=README_EXAMPLE, operation_id="plotBodeSvg"),
     Operation("/v1/plots/bode.png", "POST", "Bode plot (PNG) of a design or a circuit.",
               "plots", {200: {PNG: BINARY}}, request=_PLOT_BODY, query=_PLOT_QUERY,
               errors=COMPUTE_ERRORS, description=_PLOT_DESCRIPTION,
-              request_example=README_EXAMPLE),
+              request_example=README_EXAMPLE, operation_id="plotBodePng"),
     Operation("/v1/plots/schematic.svg", "POST", "Schematic (SVG) of a design or a circuit.",
               "plots", {200: {SVG: TEXT_BODY}}, request=_PLOT_BODY, query=_SCHEMATIC_QUERY,
               errors=COMPUTE_ERRORS, description=_SCHEMATIC_DESCRIPTION,
@@ -209,6 +233,17 @@ def _custom_fields() -> dict:
             {"type": "string", "minLength": 1, "maxLength": 80,
              "description": "Catalog id (GET /v1/opamps)."},
             conv.resolve_nested_schema(_resolve("schemas.opamp:OpAmpSchema"))]},
+        "schemas.request:OpAmpChoicesField": lambda conv: {
+            "type": "array", "minItems": 1,
+            "maxItems": _resolve("schemas.request:MAX_EXPLORATION_OPAMPS"),
+            "description": "Catalog ids and/or op-amp objects; omitted: the whole catalog.",
+            "items": {"oneOf": [
+                {"type": "string", "minLength": 1, "maxLength": 80},
+                conv.resolve_nested_schema(_resolve("schemas.opamp:OpAmpSchema"))]}},
+        "schemas.request:StageCountsField": lambda conv: {"oneOf": [
+            {"type": "string", "enum": ["auto"]},
+            {"type": "array", "minItems": 1, "maxItems": _max_stages(), "uniqueItems": True,
+             "items": {"type": "integer", "minimum": 1, "maximum": _max_stages()}}]},
     }
 
 
@@ -426,6 +461,8 @@ def build_spec(app) -> dict:
 
 
 def _operation_id(op: Operation) -> str:
+    """The row's ``operation_id``; a row without one falls back to method and path (a test
+    asks every row for its own)."""
     if op.operation_id:
         return op.operation_id
     words = openapi_path(op.path).replace("{", "").replace("}", "")

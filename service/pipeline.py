@@ -9,6 +9,7 @@ path validates and computes the same way. Raises ``marshmallow.ValidationError``
 from __future__ import annotations
 
 import time
+from dataclasses import replace
 
 from marshmallow import ValidationError
 
@@ -16,6 +17,7 @@ from schemas.request import AnalysisRequestSchema, DesignRequestSchema, limits_o
 from service.engine import report
 from service.engine.judge import extras
 from service.engine.model.circuit import Circuit, DesignRequest
+from service.engine.model.identity import design_id
 from service.engine.synthesis import design as design_mod
 from service.errors import ApiProblem
 
@@ -31,11 +33,49 @@ def _catalog(catalog):
     return current_catalog()
 
 
-def load_design_request(body, catalog=None) -> tuple[DesignRequest, dict]:
+def _library(library=False):
+    """The app's parts library (None without one, or outside an app); ``library`` if given."""
+    if library is not False:
+        return library
+    from flask import has_app_context
+
+    if not has_app_context():
+        return None
+    from service.parts_library import current_library
+
+    return current_library()
+
+
+def _stocked_components(components, library):
+    """``components.stocked_only``: restrict the synthesis to the library's values (resistors
+    at the request's tolerance or tighter; capacitors of any tolerance, since the board picks
+    their class and tolerance from the value)."""
+    if not components.stocked_only:
+        return components
+    if library is None:
+        raise ValidationError({"components": {"stocked_only": [
+            "No parts library is loaded (GAINCHAIN_PARTS_LIBRARY); GET /v1/parts lists it."]}})
+    r_values = library.values("resistor", max_tolerance_pct=components.resistor_tolerance_pct)
+    c_values = library.values("capacitor")
+    errors = {}
+    if not r_values:
+        errors["resistor"] = (f"no stocked resistor at {components.resistor_tolerance_pct:g} % "
+                              "or tighter")
+    if not c_values:
+        errors["capacitor"] = "no stocked capacitor"
+    if errors:
+        raise ValidationError({"components": {"stocked_only": [
+            "The parts library has " + " and ".join(errors.values()) + "."]}})
+    return replace(components, resistor_values=r_values, capacitor_values=c_values)
+
+
+def load_design_request(body, catalog=None, library=False) -> tuple[DesignRequest, dict]:
     """Validate a design request body; returns the engine request and the options dict."""
     if not isinstance(body, dict):
         raise ValidationError({"_schema": ["The body must be a JSON object."]})
     data = _DESIGN_SCHEMA.load(body)
+    components = data["components"][0]  # (Components, its limit fields: see limits_of)
+    components = _stocked_components(components, _library(library))
     opamp = data["opamp"]
     if isinstance(opamp, str):
         found = _catalog(catalog).get(opamp)
@@ -45,7 +85,7 @@ def load_design_request(body, catalog=None) -> tuple[DesignRequest, dict]:
         opamp = found
     req = DesignRequest(target=data["target"], supply=data["supply"][0], opamp=opamp,
                         signal=data["signal"][0], topology=data["topology"],
-                        stages=data["stages"], components=data["components"][0],
+                        stages=data["stages"], components=components,
                         strict=data["strict"], name=data.get("name"), limits=limits_of(data),
                         supply_rejection_hz=data.get("supply_rejection_hz"))
     options = _options(data)
@@ -112,7 +152,44 @@ def _design_body(result: design_mod.Design, options: dict) -> dict:
     out.update(extras.extra_blocks(
         circuit, target=result.request.target, input_peak_v=result.request.signal.input_peak_v,
         as_built=out["performance"]["as_built"], options=options, check_deadline=_deadline()))
+    out = _with_identity(out, circuit)
+    out["bom_cost"] = _stock_report(out, circuit, result.request)
     return out
+
+
+def _with_identity(out: dict, circuit: Circuit) -> dict:
+    """``design_id`` right after ``name`` (the identity of ``service.engine.model.identity``)."""
+    head = {"name": out.pop("name", None), "design_id": design_id(circuit)}
+    return {**head, **out}
+
+
+def board_of(circuit: Circuit, req: DesignRequest):
+    """The board the exports draw for this design at their defaults (size 0603, the
+    request's tolerances)."""
+    from exporters.board import build_board
+
+    comp = req.components
+    return build_board(circuit, name=req.name or "",
+                       resistor_tolerance_pct=comp.resistor_tolerance_pct,
+                       capacitor_tolerance_pct=comp.capacitor_tolerance_pct)
+
+
+def _stock_report(out: dict, circuit: Circuit, req: DesignRequest):
+    """``bom_cost`` of the design's board (null without a library); a warning names the
+    resistor and capacitor lines the library does not stock."""
+    library = _library()
+    if library is None:
+        return None
+    from exporters.bom import bom_cost, unstocked_references
+
+    board = board_of(circuit, req)
+    missing = unstocked_references(board, library)
+    if missing:
+        out["warnings"].append({"code": "unstocked_parts", "message": (
+            "No stocked part (GAINCHAIN_PARTS_LIBRARY) matches the BOM line(s) "
+            + "; ".join(missing) + " (matched on kind, value, package, dielectric, tolerance "
+            "and voltage rating at the default size 0603).")})
+    return bom_cost(board, library)
 
 
 def run_analysis(body) -> dict:
@@ -123,7 +200,7 @@ def run_analysis(body) -> dict:
     data = _ANALYSIS_SCHEMA.load(body)
     circuit: Circuit = data["circuit"]
     target = data.get("target")
-    out = {"name": data.get("name")}
+    out = {"name": data.get("name"), "design_id": design_id(circuit)}
     out.update(report.analysis_block(circuit, target=target, input_peak_v=data["input_peak_v"],
                                      limits=data["limits"],
                                      supply_rejection_hz=data.get("supply_rejection_hz")))

@@ -29,6 +29,7 @@ from exporters.board import SIZES
 from exporters.formats import KINDS, export
 from service.engine.model.circuit import Circuit
 from service.errors import ApiProblem, get_json_body
+from service.parts_library import current_library
 
 bp = Blueprint("exports", __name__)
 
@@ -51,7 +52,8 @@ def create_export(kind: str):
         circuit, name, report, tolerances = _from_circuit_body(body)
     else:
         circuit, name, report, tolerances = _from_design_request(body)
-    file = export(kind, circuit, name=name, report=report, size=size, date=date, **tolerances)
+    file = export(kind, circuit, name=name, report=report, size=size, date=date,
+                  library=current_library(), **tolerances)
     resp = Response(file.data, mimetype=None, content_type=file.mimetype)
     resp.headers["Content-Disposition"] = f'attachment; filename="{file.filename}"'
     return resp

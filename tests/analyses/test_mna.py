@@ -7,8 +7,7 @@ import numpy as np
 import pytest
 
 from analyses.circuits import ALL
-from service.engine.solver import chain
-from service.engine.solver import mna
+from service.engine.solver import chain, mna
 
 F_HZ = np.logspace(-3, 10, 131)  # the model's search range, 1 mHz .. 10 GHz
 

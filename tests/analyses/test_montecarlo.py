@@ -10,9 +10,9 @@ import pytest
 from scipy import stats
 
 from analyses.circuits import ALL, as_built_of, noninv_single, one_stage_coupling
-from service.engine.solver import chain
 from service.engine.judge import montecarlo as mc
 from service.engine.model.circuit import Target
+from service.engine.solver import chain
 
 
 @pytest.mark.parametrize("name", sorted(ALL))

@@ -10,8 +10,8 @@ import scipy.constants
 
 from analyses import spice_deck
 from analyses.circuits import ALL, as_built_of, inv_single, noninv_dual, noninv_single, opamp
-from service.engine.solver import chain
 from service.engine.judge import noise
+from service.engine.solver import chain
 
 
 def test_boltzmann_constant_is_scipy_codata():

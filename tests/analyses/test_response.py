@@ -9,8 +9,8 @@ import pytest
 from scipy import signal
 
 from analyses.circuits import ALL, inv_dual, noninv_dual
-from service.engine.solver import chain
 from service.engine.judge import response
+from service.engine.solver import chain
 
 
 def test_grid_is_log_spaced_with_both_ends():

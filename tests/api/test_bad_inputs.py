@@ -208,6 +208,18 @@ CASES = [
      circuit_without("stages"), None, J, 422, "circuit.stages"),
     ("schematic_body_is_array", "POST", "/v1/plots/schematic.png", [BASE], None, J, 422,
      "_schema"),
+    ("stocked_only_without_library", "POST", "/v1/designs",
+     with_("components", {"stocked_only": True}), None, J, 422, "components.stocked_only"),
+    ("stocked_only_string", "POST", "/v1/designs", with_("components", {"stocked_only": "yes"}),
+     None, J, 422, "components.stocked_only"),
+    ("exploration_unknown_opamp", "POST", "/v1/explorations",
+     with_("opamp", ["gc-cmos-rr-10m", "gc-nope"]), None, J, 422, "opamp.1"),
+    ("exploration_stage_counts_repeat", "POST", "/v1/explorations", with_("stages", [2, 2]),
+     None, J, 422, "stages"),
+    ("exploration_strict", "POST", "/v1/explorations", with_("strict", True), None, J, 422,
+     "strict"),
+    ("get_on_explorations", "GET", "/v1/explorations", None, None, None, 405, None),
+    ("post_on_parts", "POST", "/v1/parts", {}, None, J, 405, None),
 ]
 
 

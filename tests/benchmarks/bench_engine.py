@@ -173,8 +173,7 @@ def bench_ngspice_ratio():
 
 @section("Noise and supply-rejection blocks (4-stage design)")
 def bench_noise():
-    from service.engine.judge import noise
-    from service.engine.judge import supply_rejection
+    from service.engine.judge import noise, supply_rejection
 
     circuit, ab = four_stage_circuit()
     t = median_seconds(lambda: noise.noise_block(circuit, as_built=ab, input_peak_v=0.001), 20)

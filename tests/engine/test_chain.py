@@ -22,8 +22,8 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from service.engine.solver import chain
 from service.engine.model.circuit import Bias, Circuit, OpAmp, Stage, Supply
+from service.engine.solver import chain
 
 F_HZ = np.geomspace(1e-3, 1e10, 400)  # 1 mHz .. 10 GHz, the model's search range
 W = 2.0 * np.pi * F_HZ
@@ -343,9 +343,9 @@ def test_big_bypass_converges_to_stiff():
 
 
 def _designed(gain_db, f_low, f_high, supply, opamp_id, topology):
-    from service.engine.synthesis import design
     from service.engine.model.catalog import BUILTIN_OPAMPS
     from service.engine.model.circuit import DesignRequest, Signal, Target
+    from service.engine.synthesis import design
 
     op = next(o for o in BUILTIN_OPAMPS if o.id == opamp_id)
     req = DesignRequest(target=Target.from_gain(gain_db=gain_db, f_low_hz=f_low,

@@ -15,11 +15,8 @@ import eseries as ref  # PyPI "eseries": independent IEC 60063 tables
 import numpy as np
 import pytest
 
-from service.engine.solver import chain
-from service.engine.synthesis import design
-from service.engine.synthesis import ideal
-from service.engine.model.catalog import BUILTIN_OPAMPS
 from service.engine.errors import EngineError
+from service.engine.model.catalog import BUILTIN_OPAMPS
 from service.engine.model.circuit import (
     INVERTING,
     NON_INVERTING,
@@ -29,6 +26,8 @@ from service.engine.model.circuit import (
     Supply,
     Target,
 )
+from service.engine.solver import chain
+from service.engine.synthesis import design
 
 CATALOG = {op.id: op for op in BUILTIN_OPAMPS}
 REF_SERIES = {"E6": ref.E6, "E12": ref.E12, "E24": ref.E24, "E48": ref.E48, "E96": ref.E96,

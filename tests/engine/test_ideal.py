@@ -14,8 +14,8 @@ import numpy as np
 import pytest
 from scipy import optimize, signal
 
-from service.engine.synthesis import ideal
 from service.engine.model.circuit import INVERTING, NON_INVERTING
+from service.engine.synthesis import ideal
 
 HALF_POWER_DB = 20.0 * math.log10(1.0 / math.sqrt(2.0))
 

@@ -134,28 +134,19 @@ def test_a_part_new_to_the_board_is_drawn_from_its_nets():
 
 
 def test_a_spare_unit_wired_as_a_gain_stage_is_drawn_from_its_nets():
-    """A spare unit given a feedback resistor and a gain resistor to REF (how a part stable
-    only at higher noise gains is parked): both resistors sit on that unit."""
+    """The board parks each spare unit of a part stable only at higher noise gains as an
+    amplifier of REF (a feedback resistor and a gain resistor to REF): both resistors are
+    drawn on that unit."""
     board = build_board(dual_dc(2, channels=4))
-    units, extra = [], []
-    for i, unit in enumerate(board.units):
-        if not unit.role.startswith("unused"):
-            units.append(unit)
-            continue
-        inn = unit.inn + "_N"
-        units.append(dataclasses.replace(unit, inn=inn, role="unused (gain of REF)"))
-        extra += [Part(ref=f"R{80 + 2 * i}", value="40.2k", footprint="", lib="Device",
-                       symbol="R", description="", pins=(Pin("1", unit.out), Pin("2", inn))),
-                  Part(ref=f"R{81 + 2 * i}", value="10k", footprint="", lib="Device",
-                       symbol="R", description="", pins=(Pin("1", inn), Pin("2", board.ref_net)))]
-    board = dataclasses.replace(board, units=tuple(units), parts=board.parts + tuple(extra))
+    spare_parts = [x for x in board.parts if x.role.startswith("spare ")]
+    assert len(spare_parts) == 4  # two spare units, two resistors each
     p = plan(board)
     assert len(p.spares) == 2 and not p.others
     for up in p.spares:
-        assert [x.value for x in up.feedback] == ["40.2k"]
-        assert [[x.value for x, _ in chain] for chain in up.n_chains] == [["10k"]]
+        assert len(up.feedback) == 1 and up.feedback[0].role.endswith("feedback")
+        assert [[x.role.split()[-1] for x, _ in chain] for chain in up.n_chains] == [["gain"]]
     texts = svg_texts(schematic(board, fmt="svg"))
-    assert {x.ref for x in extra} <= set(texts)
+    assert {x.ref for x in spare_parts} <= set(texts)
 
 
 def test_same_board_same_bytes():

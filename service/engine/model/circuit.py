@@ -216,13 +216,35 @@ class Target:
 
 @dataclass(frozen=True)
 class Components:
-    """Component-series choices of a design request."""
+    """Component-series choices of a design request.
+
+    ``resistor_values`` / ``capacitor_values`` (None: the whole series) restrict the
+    synthesis to those values of the series, e.g. an organisation's stocked parts when the
+    request asks for ``stocked_only`` (the web layer fills them from its parts library).
+    """
 
     resistor_series: str = "E96"
     capacitor_series: str = "E12"
     resistor_tolerance_pct: float = 1.0
     capacitor_tolerance_pct: float = 10.0
     impedance_ohm: float = 10_000.0
+    stocked_only: bool = False
+    resistor_values: tuple[float, ...] | None = None
+    capacitor_values: tuple[float, ...] | None = None
+
+    @property
+    def resistor_pool(self) -> str | tuple:
+        """What the synthesis picks resistors from: the series name, or (name, values)."""
+        if self.resistor_values is None:
+            return self.resistor_series
+        return (self.resistor_series, tuple(sorted(self.resistor_values)))
+
+    @property
+    def capacitor_pool(self) -> str | tuple:
+        """What the synthesis picks capacitors from: the series name, or (name, values)."""
+        if self.capacitor_values is None:
+            return self.capacitor_series
+        return (self.capacitor_series, tuple(sorted(self.capacitor_values)))
 
 
 @dataclass(frozen=True)

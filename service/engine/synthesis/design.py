@@ -84,8 +84,33 @@ class Synthesis:
 
 
 @lru_cache(maxsize=16)
-def _series_values(series: str) -> np.ndarray:
-    return eseries.values_between(series, 1e-13, 1e9)
+def _series_values(series: str | tuple) -> np.ndarray:
+    """Every value of a series, ascending; ``series`` is a name ("E96") or a pool
+    ``(name, allowed values)`` (``Components.resistor_pool``): the series' members among
+    the allowed values (to 1e-9 relative)."""
+    if isinstance(series, str):
+        return eseries.values_between(series, 1e-13, 1e9)
+    name, allowed = series
+    full = eseries.values_between(name, 1e-13, 1e9)
+    allowed = np.asarray(allowed, dtype=float)
+    keep = np.isclose(full[:, None], allowed[None, :], rtol=1e-9, atol=0.0).any(axis=1)
+    if not keep.any():
+        raise EngineError(f"none of the stocked values is a member of {name}",
+                          field="components.stocked_only")
+    return full[keep]
+
+
+def _between(series: str | tuple, low: float, high: float) -> np.ndarray:
+    """Series (or pool) values in ``[low, high]``; for a pool with none there, the pool
+    values nearest the range (so a sparse stock still yields a choice)."""
+    if isinstance(series, str):
+        return eseries.values_between(series, low, high)
+    v = _series_values(series)
+    inside = v[(v >= low) & (v <= high)]
+    if inside.size:
+        return inside
+    centre = math.sqrt(low * high)
+    return v[np.argsort(np.abs(np.log(v / centre)), kind="stable")[:3]]
 
 
 def _round_up(series: str, x: np.ndarray) -> np.ndarray:
@@ -115,8 +140,7 @@ def gain_candidates(series: str, gain: float, topology: str, impedance_ohm: floa
     noise gain (``g`` non-inverting, ``1 + Rf/(Rin + r_extra)`` inverting) falls below
     ``min_noise_gain`` are left out unless no pair reaches it.
     """
-    level = eseries.values_between(series, impedance_ohm / math.sqrt(10),
-                                   impedance_ohm * math.sqrt(10))
+    level = _between(series, impedance_ohm / math.sqrt(10), impedance_ohm * math.sqrt(10))
     level2 = np.concatenate([level, level])
     if topology == NON_INVERTING:
         other = level / max(gain - 1.0, 1e-6)
@@ -193,7 +217,7 @@ def bias_divider(series: str, v_supply: float, v_target: float,
     """
     ratio = v_target / v_supply
     centre = 2.0 * impedance_ohm
-    tops = eseries.values_between(series, centre / math.sqrt(10), centre * math.sqrt(10))
+    tops = _between(series, centre / math.sqrt(10), centre * math.sqrt(10))
     want = tops * ratio / (1.0 - ratio)
     bottoms = np.concatenate([_round_down_vec(series, want), _round_up(series, want)])
     tops2 = np.concatenate([tops, tops])
@@ -217,13 +241,13 @@ def synthesize(req: DesignRequest, n: int) -> Synthesis:
     comp = req.components
     topo = req.topology
     rs = req.signal.source_impedance_ohm
-    pairs = choose_pairs(comp.resistor_series, req.target.gain, n, topo, comp.impedance_ohm,
+    pairs = choose_pairs(comp.resistor_pool, req.target.gain, n, topo, comp.impedance_ohm,
                          rs, min_noise_gain=req.opamp.min_stable_gain)
     bias, bias_reason = _initial_bias(req, n)
     # One cheap solve predicts the losses (source divider, finite A0) before any capacitor
     # is sized, so the gain passes usually settle in one.
     ideal_product = math.prod(_pair_gain(p, topo, rs, k) for k, p in enumerate(pairs))
-    pairs = choose_pairs(comp.resistor_series, req.target.gain, n, topo, comp.impedance_ohm,
+    pairs = choose_pairs(comp.resistor_pool, req.target.gain, n, topo, comp.impedance_ohm,
                          rs, correction=_midband_estimate(req, pairs) / ideal_product,
                          min_noise_gain=req.opamp.min_stable_gain)
     pairs, circuit, result = _gain_passes(req, pairs, bias)
@@ -264,7 +288,7 @@ def _gain_passes(req: DesignRequest, pairs, bias):
         if err < 1e-5:
             break
         ideal_product = math.prod(_pair_gain(p, topo, rs, k) for k, p in enumerate(pairs))
-        new = choose_pairs(comp.resistor_series, target.gain, n, topo, comp.impedance_ohm, rs,
+        new = choose_pairs(comp.resistor_pool, target.gain, n, topo, comp.impedance_ohm, rs,
                            correction=result.gain / ideal_product, previous=pairs,
                            min_noise_gain=req.opamp.min_stable_gain)
         new_product = math.prod(_pair_gain(p, topo, rs, k) for k, p in enumerate(new))
@@ -288,9 +312,9 @@ def _midband_estimate(req: DesignRequest, pairs) -> float:
     ac = t.f_low_hz > 0
     single = req.supply.kind != DUAL
     comp = req.components
-    rb0 = float(_nearest(comp.resistor_series, comp.impedance_ohm))
+    rb0 = float(_nearest(comp.resistor_pool, comp.impedance_ohm))
     rs = req.signal.source_impedance_ohm
-    rb_first = float(_nearest(comp.resistor_series,
+    rb_first = float(_nearest(comp.resistor_pool,
                               max(comp.impedance_ohm, SOURCE_LOAD_RATIO * rs)))
     non_inv = req.topology == NON_INVERTING
     params = chain.ChainParams(
@@ -351,7 +375,7 @@ def _divider_level(req: DesignRequest, buffered: bool, step: int) -> float:
 
 
 def _bias(req: DesignRequest, n: int, *, buffered: bool, level_ohm: float) -> Bias:
-    r_top, r_bottom = bias_divider(req.components.resistor_series, req.supply.v_pos,
+    r_top, r_bottom = bias_divider(req.components.resistor_pool, req.supply.v_pos,
                                    _midrail_target_v(req), level_ohm)
     return Bias(r_top, r_bottom, _bypass_for(req, r_top, r_bottom, n), buffered)
 
@@ -362,7 +386,7 @@ def _bypass_for(req: DesignRequest, r_top: float, r_bottom: float, n: int) -> fl
     m = _low_pole_count(req, n)
     f_pole = req.target.f_low_hz * ideal.shrinkage(m) / BYPASS_POLE_RATIO
     r_par = r_top * r_bottom / (r_top + r_bottom)
-    return float(_round_up(req.components.capacitor_series, 1.0 / (TWO_PI * r_par * f_pole)))
+    return float(_round_up(req.components.capacitor_pool, 1.0 / (TWO_PI * r_par * f_pole)))
 
 
 def _low_pole_count(req: DesignRequest, n: int) -> int:
@@ -372,7 +396,7 @@ def _low_pole_count(req: DesignRequest, n: int) -> int:
 
 def _largest_capacitor(req: DesignRequest) -> float:
     """The largest value of the capacitor series within ``limits.max_capacitor_f``."""
-    v = _series_values(req.components.capacitor_series)
+    v = _series_values(req.components.capacitor_pool)
     ok = v[v <= req.limits.max_capacitor_f * (1 + 1e-12)]
     return float(ok[-1]) if ok.size else float(v[0])
 
@@ -430,7 +454,7 @@ def _settle_bias(req: DesignRequest, pairs, bias: Bias) -> tuple[Bias, str | Non
                 break
             # ripple: grow by the predicted excess (+20 %); peaking: by BYPASS_GROWTH
             growth = max(1.2 * 10.0 ** (excess / 20.0), 1.5) if excess > 0 else BYPASS_GROWTH
-            bigger = min(float(_round_up(req.components.capacitor_series,
+            bigger = min(float(_round_up(req.components.capacitor_pool,
                                          cand.c_bypass_f * growth)), c_max)
             cand = replace(cand, c_bypass_f=bigger)
     chosen = best[3]
@@ -475,7 +499,7 @@ def _circuit(req: DesignRequest, stages, bias, c_out) -> Circuit:
 def _with_low_side(req: DesignRequest, pairs, bias) -> Circuit:
     """Size the coupling, ground-leg and output capacitors (module docstring, step 2)."""
     comp = req.components
-    cser, rser = comp.capacitor_series, comp.resistor_series
+    cser, rser = comp.capacitor_pool, comp.resistor_pool
     n = len(pairs)
     rs = req.signal.source_impedance_ohm
     single = req.supply.kind != DUAL
