@@ -301,6 +301,71 @@ def solve(net: Net, f_hz, *, drive: str, replace_unit: str | None = None) -> dic
     return out
 
 
+def natural_frequencies(net: Net) -> np.ndarray:
+    """Natural frequencies s (rad/s) of the circuit with every independent source zeroed:
+    the finite generalised eigenvalues of G x = -s C x (state-space form of the nodal
+    equations, common practice), each op-amp unit written with its pole as a state
+    y: (1 + s A0 / (2 pi GBW)) y = A0 (V+ - V-), V(out) = y. A circuit whose linear model
+    has a natural frequency with a positive real part oscillates or latches."""
+    import scipy.linalg
+
+    nodes = net.nodes()
+    idx = {n: i for i, n in enumerate(nodes)}
+    vsrc = [e for e in net.elements if e[0] == "V"]
+    esrc = [e for e in net.elements if e[0] == "E"]
+    nn = len(nodes)
+    size = nn + len(vsrc) + len(esrc) + 2 * len(net.units)
+    gm, cm = np.zeros((size, size)), np.zeros((size, size))
+
+    def stamp(mat, a, b, y):
+        ia, ib = idx.get(a), idx.get(b)
+        if ia is not None:
+            mat[ia, ia] += y
+        if ib is not None:
+            mat[ib, ib] += y
+        if ia is not None and ib is not None:
+            mat[ia, ib] -= y
+            mat[ib, ia] -= y
+
+    def branch(row, a, b):
+        for node, sign in ((a, 1.0), (b, -1.0)):
+            if node in idx:
+                gm[idx[node], row] += sign
+                gm[row, idx[node]] += sign
+
+    for e in net.elements:
+        if e[0] == "R":
+            stamp(gm, e[2], e[3], 1.0 / e[4])
+        elif e[0] == "C":
+            stamp(cm, e[2], e[3], e[4])
+    row = nn
+    for e in vsrc:
+        branch(row, e[2], e[3])
+        row += 1
+    for e in esrc:
+        branch(row, e[2], e[3])
+        for node, sign in ((e[4], -1.0), (e[5], 1.0)):
+            if node in idx:
+                gm[row, idx[node]] += sign * e[6]
+        row += 1
+    for u in net.units:
+        y = row + 1
+        # output branch: V(out) - y = 0, its current enters the KCL of out
+        if u.out in idx:
+            gm[idx[u.out], row] += 1.0
+            gm[row, idx[u.out]] += 1.0
+        gm[row, y] -= 1.0
+        # pole state: y + tau dy/dt - A0 (V+ - V-) = 0
+        gm[y, y] = 1.0
+        cm[y, y] = u.a0 / (TWO_PI * u.gbw_hz)
+        for node, sign in ((u.plus, -1.0), (u.minus, 1.0)):
+            if node in idx:
+                gm[y, idx[node]] += sign * u.a0
+        row += 2
+    vals = scipy.linalg.eigvals(gm, -cm)
+    return vals[np.isfinite(vals)]
+
+
 def vdiff(sol: dict, a: str, b: str) -> np.ndarray:
     return sol[a] - sol[b]
 

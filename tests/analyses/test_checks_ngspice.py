@@ -66,8 +66,10 @@ ANALYSES = {
     "fixed-bypassed": noninv_single(buffered=False, amp=_OFFSET_AMP),
     "fixed-buffered": noninv_single(buffered=True, amp=_OFFSET_AMP),
     "fixed-inv-bypassed": inv_single(buffered=False, amp=_OFFSET_AMP),
-    # A small bypass leaves the shared bias node soft: the low-frequency artefact of issue 8.
-    "fixed-soft-bias": noninv_single(buffered=False, amp=_OFFSET_AMP, c_bypass_f=1e-6),
+    # A small bypass leaves the shared bias node soft: stage 1's |V(O1)/V(X1)| peaks at
+    # 14.6 near 4 Hz against 10.09 in band, the low-frequency artefact of issue 8 (4.7 uF
+    # keeps the circuit stable; 2.2 uF and below it oscillates, test_spice_checks.py).
+    "fixed-soft-bias": noninv_single(buffered=False, amp=_OFFSET_AMP, c_bypass_f=4.7e-6),
 }
 ANALYSIS_TARGET = {"gain_db": 60, "f_low_hz": 20, "f_high_hz": 20000}
 ANALYSIS_INPUT_V = 0.001
@@ -395,8 +397,13 @@ def test_input_impedance_vs_ngspice_ac(api, name):
     net = sc.build(circuit)
     at = sc.ac(net, [d["performance"]["as_built"]["peak_hz"]],
                {"x1": ("x1", "0"), "drop": ("vs", "x1")}, drive="signal")
-    z = abs(at["x1"][0] / (at["drop"][0] / circuit["source_impedance_ohm"]))
-    assert e["value"] == pytest.approx(z, rel=0.01)
+    current = abs(at["drop"][0]) / circuit["source_impedance_ohm"]
+    if current < 1e-15 * abs(at["x1"][0]):
+        # A DC-coupled non-inverting input draws no current in the model (README: no input
+        # current): the impedance is unbounded, reported as null or as a huge figure.
+        assert e["value"] is None or e["value"] > 1e12
+        return
+    assert e["value"] == pytest.approx(abs(at["x1"][0]) / current, rel=0.01)
 
 
 # ------------------------------------------------------------ stability, parts, currents
@@ -444,10 +451,15 @@ def test_part_values_entries(api, name):
     caps, res = _parts(d["circuit"])
     big_c, small_r, big_r = entries(d, "part_values")
     lim = d["limits"]
-    assert (big_c["value"], big_c["limit"]) == (max(caps), lim["max_capacitor_f"])
+    assert big_c["limit"] == lim["max_capacitor_f"]
+    if not caps:  # a DC-coupled chain may have none: nothing can exceed the limit
+        assert big_c["value"] in (None, 0, 0.0) and big_c["passed"] is not False
+        caps = [0.0]
+    else:
+        assert big_c["value"] == max(caps)
+        assert big_c["passed"] == (max(caps) <= lim["max_capacitor_f"])
     assert (small_r["value"], small_r["limit"]) == (min(res), lim["min_resistor_ohm"])
     assert (big_r["value"], big_r["limit"]) == (max(res), lim["max_resistor_ohm"])
-    assert big_c["passed"] == (max(caps) <= lim["max_capacitor_f"])
     assert small_r["passed"] == (min(res) >= lim["min_resistor_ohm"])
     assert big_r["passed"] == (max(res) <= lim["max_resistor_ohm"])
 

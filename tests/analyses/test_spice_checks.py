@@ -223,3 +223,26 @@ def test_loop_noise_gain_textbook_and_exported_spare_units(client):
             assert gains[u.name] == pytest.approx(1 + st["r_feedback_ohm"] / st["r_gain_ohm"],
                                                   rel=0.01)
         assert gains[u.name] >= 1.0 - 1e-6
+
+
+def test_natural_frequencies_flag_the_oscillating_shared_bias():
+    # A shared unbuffered bias node closes a loop through every stage's bias resistor: with
+    # a 1 uF bypass this 3-stage, 60 dB chain oscillates (ngspice `.tran` from rest grows
+    # without bound), with 47 uF it settles. The natural frequencies of the nodal model
+    # (generalised eigenvalues, common practice) must say the same.
+    soft = noninv_single(buffered=False, c_bypass_f=1e-6).to_dict()
+    stiff = noninv_single(buffered=False, c_bypass_f=47e-6).to_dict()
+    assert np.max(sc.natural_frequencies(sc.build(soft)).real) > 0
+    assert np.max(sc.natural_frequencies(sc.build(stiff)).real) < 0
+    _, tail_soft = sc.startup_time(soft, 20.0)
+    _, tail_stiff = sc.startup_time(stiff, 20.0)
+    assert tail_soft > 1.0 and tail_stiff < 1e-3
+    # One RC (hand formula): the only natural frequency is -1/(R C).
+    one = {"topology": "non_inverting", "supply": {"kind": "dual", "v_pos": 5, "v_neg": -5},
+           "opamp": {"gbw_hz": 1e6, "a0_db": 100}, "source_impedance_ohm": 1e3,
+           "load_ohm": 1e4, "bias": None, "c_out_f": None,
+           "stages": [{"c_couple_f": 1e-6, "r_bias_ohm": 1e4, "r_feedback_ohm": 1e4,
+                       "r_gain_ohm": 1e4, "c_gain_f": None}]}
+    s = np.sort(sc.natural_frequencies(sc.build(one)).real)
+    assert any(abs(v + 1 / (11e3 * 1e-6)) < 1e-6 / (11e3 * 1e-6) for v in s)
+    assert np.max(s) < 0
