@@ -71,6 +71,8 @@ ANALYSES = {
     # keeps the circuit stable; 2.2 uF and below it oscillates, test_spice_checks.py).
     "fixed-soft-bias": noninv_single(buffered=False, amp=_OFFSET_AMP, c_bypass_f=4.7e-6),
 }
+#: Fields the dataclass op-amp does not carry, added to an analysis circuit's op-amp JSON.
+ANALYSIS_OPAMP_EXTRA = {"fixed-inv-bypassed": {"output_current_max_a": 0.002}}
 ANALYSIS_TARGET = {"gain_db": 60, "f_low_hz": 20, "f_high_hz": 20000}
 ANALYSIS_INPUT_V = 0.001
 ALL_CASES = sorted(DESIGNS) + sorted(ANALYSES)
@@ -101,14 +103,16 @@ _CACHE: dict = {}
 
 def case(api, name: str) -> dict:
     """The response of a case (cached: same request, same bytes), with ``_input_peak_v``
-    and ``_target`` added for the checks below."""
+    and ``_body`` added for the checks below (and ``circuit`` for an analysis)."""
     if name not in _CACHE:
         if name in DESIGNS:
             body = DESIGNS[name]
             resp = api.post("/v1/designs", json=body)
             peak = body["signal"]["input_peak_v"]
         else:
-            body = {"circuit": ANALYSES[name].to_dict(), "input_peak_v": ANALYSIS_INPUT_V,
+            circuit = ANALYSES[name].to_dict()
+            circuit["opamp"].update(ANALYSIS_OPAMP_EXTRA.get(name, {}))
+            body = {"circuit": circuit, "input_peak_v": ANALYSIS_INPUT_V,
                     "target": ANALYSIS_TARGET}
             resp = api.post("/v1/analyses", json=body)
             peak = ANALYSIS_INPUT_V
@@ -296,6 +300,38 @@ def test_output_swing_and_slew_values_vs_ngspice(api, name):
         assert slew[k]["passed"] == (slew[k]["value"] <= slew[k]["limit"])
 
 
+@pytest.mark.parametrize("name", ALL_CASES)
+def test_input_common_mode_verdict_vs_nodal_levels(api, name):
+    # Item 1, input_common_mode: the + input's DC level (ngspice `.op`) +- its AC peak
+    # (input_peak_v x max over f of |V(+)/Vs|, ngspice `.ac`) must stay inside
+    # [v_neg + cm_to_neg_v, v_pos - cm_to_pos_v]. Where the verdict hangs on whether the DC
+    # offset error is counted (a margin under that error), either verdict is accepted.
+    d = case(api, name)
+    circuit, peak = d["circuit"], d["_input_peak_v"]
+    amp, supply = circuit["opamp"], circuit["supply"]
+    v_neg = supply.get("v_neg") or 0.0
+    cm_lo = v_neg + amp.get("cm_to_neg_v", 0.0)
+    cm_hi = supply["v_pos"] - amp.get("cm_to_pos_v", 0.0)
+    net = sc.build(circuit)
+    plus = net.plus_nodes
+    live = sorted({p for p in plus if p != "0"})  # + inputs at GND (dual, inverting): 0 V
+    nominal, sw = {"0": 0.0}, {"0": np.zeros(1)}
+    if live:
+        nominal.update(sc.op_sensitivities(sc.build(circuit, offsets=True), {}, live)[0])
+        sw.update(sc.ac(net, None, {p: (p, "0") for p in live}, drive="signal",
+                        sweep=F_GRID))
+    _, worst = sc.worst_dc_error(circuit)
+    cm = entries(d, "input_common_mode")
+    for k, p in enumerate(plus):
+        level = nominal[p]
+        ac_peak = peak * float(np.max(np.abs(sw[p])))
+        margin = min(level - ac_peak - cm_lo, cm_hi - level - ac_peak)
+        slack = abs(amp.get("vos_v", 0.0)) + max(worst) + 1e-6
+        if abs(margin) > slack:
+            assert cm[k]["passed"] == (margin >= 0), (k + 1, cm[k], margin)
+        assert cm[k]["unit"] == "V"
+
+
 def _crossing(f, db, i0, ref_db, step):
     """First crossing of ref_db - 3 walking from index i0 by step; log-f/dB interpolation."""
     i = i0
@@ -411,14 +447,15 @@ def test_input_impedance_vs_ngspice_ac(api, name):
 # ------------------------------------------------------------ stability, parts, currents
 
 
-@pytest.mark.parametrize("name", sorted(DESIGNS))
+@pytest.mark.parametrize("name", ALL_CASES)
 def test_stability_entries_vs_loop_gain_of_the_exported_netlist(api, name):
     # Item 1, stability: noise gain 1/|beta| where |A beta| crosses 1, for every unit the
     # exporters place (netlist.cir: stages, VMID follower, spares), against the test's own
     # nodal solution of the exported deck (loop broken at each unit's output). 1 %.
     d = case(api, name)
-    resp = api.post("/v1/exports/netlist.cir", json=DESIGNS[name])
-    assert resp.status_code == 200
+    body = DESIGNS[name] if name in DESIGNS else {"name": name, "circuit": d["circuit"]}
+    resp = api.post("/v1/exports/netlist.cir", json=body)
+    assert resp.status_code == 200, resp.data[:400]
     exported = sc.net_from_export(resp.data.decode(), d["circuit"]["opamp"])
     order = ([u for u in exported.units if u.role == "stage"]
              + [u for u in exported.units if u.role == "follower"]
@@ -489,7 +526,8 @@ def test_supply_current_entry(api, name):
 
 @pytest.mark.parametrize("name", [n for n in sorted(DESIGNS)
                                   if isinstance(DESIGNS[n]["opamp"], dict)
-                                  and "output_current_max_a" in DESIGNS[n]["opamp"]])
+                                  and "output_current_max_a" in DESIGNS[n]["opamp"]]
+                         + sorted(ANALYSIS_OPAMP_EXTRA))
 def test_output_current_vs_nodal_currents(api, name):
     # Item 1, output_current: the peak current out of each stage's op-amp output at the
     # stated input (feedback network, next stage and load together). Bounds from the test's
