@@ -61,7 +61,7 @@ def test_op_with_zero_offsets_sits_at_vmid(name):
         dc = sc.solve(net, [0.0], drive="dc")
         for node in outs + extra:
             # ngspice stops its Newton iteration at vntol = 1 uV (ngspice user manual,
-            # ".options"): the agreement asked is that.
+            # ".options"; the default value from memory): the agreement asked is that.
             assert nominal[node] == pytest.approx(dc[node][0].real, rel=1e-7, abs=1e-6)
     vmid = sc.vdiv_v(circuit) if circuit["bias"] else 0.0
     for node in outs + extra:

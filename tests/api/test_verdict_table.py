@@ -373,3 +373,27 @@ def test_independent_check_catches_what_todays_verdict_misses(client):
                            json={"name": "soft-bias", "circuit": circuit}).data.decode()
     found = independent_problems(a, {"signal": {"input_peak_v": 1e-4}}, exported)
     assert any("oscillates" in p for p in found), found
+
+
+OK_ROWS = [t for t in TABLE if t[2] == "meets_target"]
+
+
+@pytest.mark.slow
+@pytest.mark.ngspice
+@pytest.mark.parametrize("case_id, body, status, failing", OK_ROWS, ids=[t[0] for t in OK_ROWS])
+def test_meets_target_rows_neither_clip_nor_slew_in_tran(client, case_id, body, status, failing):
+    # Issue 8's clipping and slew test on every row expected to meet its target. Reference:
+    # ngspice `.tran` at the stated input (a sine at performance.as_built.peak_hz, ramped in
+    # from the `.op` point): op-amps clamped to the swing window, then slew-limited, give
+    # stage outputs within 1 % of the linear run.
+    d = _design(client, body)
+    ab = d["performance"]["as_built"]
+    f = ab["peak_hz"]
+    ramp = max(5.0 / f, 2.0 / ab["f_low_hz"]) if ab["f_low_hz"] else 5.0 / f
+    net = sc.build(d["circuit"])
+    dc = sc.solve(net, [0.0], drive="dc")
+    op = {o: dc[o][0].real for _, o in net.stages}
+    for kind in ("clamp", "slew"):
+        runs = sc.sine_runs(d["circuit"], f, body["signal"]["input_peak_v"], kind=kind,
+                            ramp_s=ramp)
+        assert max(sc.relative_difference(runs, kind, op)) <= 0.01, (case_id, kind)
