@@ -363,7 +363,12 @@ def natural_frequencies(net: Net) -> np.ndarray:
                 gm[y, idx[node]] += sign * u.a0
         row += 2
     vals = scipy.linalg.eigvals(gm, -cm)
-    return vals[np.isfinite(vals)]
+    # The pencil is singular (algebraic rows): its infinite eigenvalues come out of the QZ
+    # step as inf or as round-off giants. No natural frequency of the model lies beyond the
+    # fastest op-amp's GBW by many decades, so anything past 1e6 x 2 pi GBW is one of them.
+    fastest = max((u.gbw_hz for u in net.units), default=1e9)
+    vals = vals[np.isfinite(vals)]
+    return vals[np.abs(vals) < 1e6 * TWO_PI * fastest]
 
 
 def vdiff(sol: dict, a: str, b: str) -> np.ndarray:

@@ -173,7 +173,8 @@ def test_checks_block_shape_and_order(api, name):
         assert [e["stage"] for e in entries(d, c)] == list(range(1, n + 1))
     used, fitted = units_in_packages(circuit)
     stab = [e["stage"] for e in entries(d, "stability")]
-    assert stab == list(range(1, n + 1)) + [None] * (fitted - n)
+    # per unit (stages, then follower and spares), then the whole circuit's growth rate
+    assert stab == list(range(1, n + 1)) + [None] * (fitted - n) + [None]
     ripple = entries(d, "supply_ripple")
     if circuit["bias"] is not None:
         assert len(ripple) == len(d["supply_rejection"]["frequency_hz"]) + 1
@@ -274,14 +275,26 @@ def test_dc_error_and_operating_point_vs_ngspice_op(api, name):
 F_GRID = (100, 1e-3, 1e10)  # ngspice .ac: 100 points per decade, 1 mHz .. 10 GHz
 
 
-def _stage_sweep(d: dict) -> tuple[sc.Net, dict]:
+def _stage_sweep(d: dict, sweep=F_GRID) -> tuple[sc.Net, dict]:
     net = sc.build(d["circuit"])
     probes = {"out": net.out}
     for k, (x, o) in enumerate(net.stages, start=1):
         probes[f"o{k}"] = (o, net.ref)
         probes[f"ox{k}"] = (o, "0")
         probes[f"x{k}"] = (x, "0")
-    return net, sc.ac(net, None, probes, drive="signal", sweep=F_GRID)
+    return net, sc.ac(net, None, probes, drive="signal", sweep=sweep)
+
+
+def signal_band(d: dict) -> tuple[float, float]:
+    """The frequencies the stated input may occupy (README "Build checks"): from the lower
+    of the target's and the as-built low corner to the higher of their high corners; 1 mHz
+    when DC coupled. Beyond it a single-pole op-amp makes 2 pi f |H| of a first stage tend
+    to 2 pi GBW, a slope no in-band input reaches."""
+    ab = d["performance"]["as_built"]
+    target = d.get("target") or d["_body"].get("target")
+    lows = [f for f in (ab["f_low_hz"], target and target["f_low_hz"]) if f]
+    highs = [f for f in (ab["f_high_hz"], target and target["f_high_hz"]) if f]
+    return (min(lows) if lows else 1e-3), max(highs)
 
 
 @pytest.mark.parametrize("name", ALL_CASES)
@@ -289,14 +302,15 @@ def test_output_swing_and_slew_values_vs_ngspice(api, name):
     # Item 1. output_swing: required = dc_error_v (ngspice .op, as above) + input_peak_v x
     # max over f of |V(O_k) - V(REF)| / |Vs| (ngspice .ac); limit = min(hi - Vop, Vop - lo)
     # with [lo, hi] the swing window from the rails. slew_rate: max over f of
-    # 2 pi f x input_peak_v x |V(O_k) - V(REF)| / |Vs| in V/us, limit slew_v_per_us.
+    # 2 pi f x input_peak_v x |V(O_k) - V(REF)| / |Vs| in V/us, limit slew_v_per_us. "Over
+    # f" is the signal band (signal_band above), swept by ngspice at 400 points per decade.
     d = case(api, name)
     circuit, peak = d["circuit"], d["_input_peak_v"]
     amp, supply = circuit["opamp"], circuit["supply"]
     lo = (supply.get("v_neg") or 0.0) + amp["swing_to_neg_v"]
     hi = supply["v_pos"] - amp["swing_to_pos_v"]
     nominal, worst = sc.worst_dc_error(circuit)
-    _, sw = _stage_sweep(d)
+    _, sw = _stage_sweep(d, sweep=(400, *signal_band(d)))  # the band's ends included
     f = sw["frequency"]
     swing, slew = entries(d, "output_swing"), entries(d, "slew_rate")
     for k in range(len(circuit["stages"])):
@@ -473,6 +487,12 @@ def test_stability_entries_vs_loop_gain_of_the_exported_netlist(api, name):
              + [u for u in exported.units if u.role == "follower"]
              + [u for u in exported.units if u.role == "spare"])
     stab = entries(d, "stability")
+    # the last entry is the whole circuit: its largest growth rate (1/s) against 0, checked
+    # against the natural frequencies of the test's own nodal model (scipy.linalg.eigvals)
+    whole = stab.pop()
+    rates = sc.natural_frequencies(sc.build(d["circuit"])).real
+    assert whole["stage"] is None and whole["limit"] == 0.0
+    assert whole["passed"] == (rates.max() <= 1e-9 * np.abs(rates).max())
     assert len(stab) == len(order)
     min_gain = d["circuit"]["opamp"].get("min_stable_gain", 1.0)
     for e, u in zip(stab, order, strict=True):

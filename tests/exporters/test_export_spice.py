@@ -2,7 +2,8 @@
 
 References: ngspice 39 (Debian package) in batch mode, reading the deck exactly as exported;
 the engine's nodal solution ``service.engine.solver.chain.solve`` and corner finder
-``service.engine.solver.corners.find_band``. Deck rules from the format brief (eda-formats.md sec. 5).
+``service.engine.solver.corners.find_band``. Deck rules: the ngspice user manual (elements,
+``.ac``, ``.print``).
 """
 
 from __future__ import annotations

@@ -116,6 +116,10 @@ def compute_as_built(circuit: Circuit, *, per_stage: bool = True) -> AsBuilt:
     )
 
 
+#: Floor of a magnitude before taking its logarithm (a response that underflows to 0).
+TINY = 1e-300
+
+
 def stage_band(circuit: Circuit, k: int, peak_hz: float) -> dict:
     """Stage k's in-place figures at the cascade's peak frequency.
 
@@ -126,10 +130,14 @@ def stage_band(circuit: Circuit, k: int, peak_hz: float) -> dict:
     """
     def ratio(f):
         sol = chain.solve(circuit, np.atleast_1d(f))
-        return np.abs(sol.stage_out_abs[k] / sol.stage_in[k])
+        with np.errstate(divide="ignore", invalid="ignore"):  # an input that underflows
+            r = np.abs(sol.stage_out_abs[k] / sol.stage_in[k])
+        return np.where(np.isfinite(r), r, 0.0)
 
     level = float(ratio(peak_hz)[0]) * corners.HALF_POWER
     grid = corners.GRID_HZ
+    if not (math.isfinite(level) and level > 0.0):
+        return {"gain": level / corners.HALF_POWER, "f_low_hz": None, "f_high_hz": None}
 
     def crossing(side):
         f = grid[grid < peak_hz][::-1] if side < 0 else grid[grid > peak_hz]
@@ -141,7 +149,9 @@ def stage_band(circuit: Circuit, k: int, peak_hz: float) -> dict:
             return None
         j = below[0]
         near = peak_hz if j == 0 else f[j - 1]
-        g = lambda lf: float(np.log(ratio(np.exp(lf))[0] / level))  # noqa: E731
+        def g(lf):
+            return float(np.log(max(float(ratio(np.exp(lf))[0]), TINY) / level))
+
         return float(np.exp(brentq(g, math.log(near), math.log(f[j]), xtol=1e-12)))
 
     return {"gain": level / corners.HALF_POWER, "f_low_hz": crossing(-1),

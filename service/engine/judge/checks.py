@@ -15,8 +15,12 @@ signal order within a check:
   ``slew_v_per_us`` (the largest sine slope, ``2 pi f Vp``: common practice);
 * ``stability`` (per op-amp unit: stages, VMID follower, spares): the noise gain
   ``1/|beta|`` where the loop gain ``|A beta|`` crosses unity, against ``min_stable_gain``;
+  then one entry for the whole circuit: the largest growth rate (1/s, the real part of its
+  natural frequencies) against 0, since stages sharing a soft bias node close a loop that
+  no single unit's figure shows;
 * ``supply_ripple``: ``20 log10 |Vout/Vcc|`` at each supply-rejection frequency and its
-  maximum over the target band, against ``-ripple_rejection_db``;
+  maximum over the target band (an analysis without a target: the as-built band), against
+  ``-ripple_rejection_db``;
 * ``part_values``: largest capacitor, smallest and largest resistor against the limits;
 * ``output_current`` (per unit, when the op-amp gives ``output_current_max_a``): the peak
   current out of the op-amp's output at the stated input;
@@ -42,7 +46,13 @@ from service.engine.model.circuit import INVERTING, Circuit, Limits, Target
 from service.engine.model.spares import spare_units
 from service.engine.solver import corners
 from service.engine.solver.chain import open_loop_gain
-from service.engine.solver.mna import MnaSystem, build, reference_node, stage_nodes
+from service.engine.solver.mna import (
+    MnaSystem,
+    build,
+    natural_frequencies,
+    reference_node,
+    stage_nodes,
+)
 from service.engine.solver.transient import settling_time_s
 
 TWO_PI = 2.0 * math.pi
@@ -108,6 +118,14 @@ def signal_band_hz(target: Target | None, f_low_hz: float, f_high_hz: float) -> 
     low = min(lows) if lows and min(lows) > 0 else corners.F_MIN_HZ
     high = max(highs) if highs else corners.F_MAX_HZ
     return max(low, corners.F_MIN_HZ), min(max(high, low * 1.001), corners.F_MAX_HZ)
+
+
+def ripple_band_hz(ctx) -> tuple:
+    """The band over which supply ripple is judged: the target band (the contract's), or
+    the as-built band of an analysis without a target."""
+    if ctx.target is not None:
+        return signal_band_hz(ctx.target, ctx.target.f_low_hz, ctx.target.f_high_hz)
+    return signal_band_hz(None, ctx.f_low_hz, ctx.f_high_hz)
 
 
 def band_grid(low_hz: float, high_hz: float) -> np.ndarray:
@@ -188,7 +206,20 @@ def noise_gain_at_crossover(circuit: Circuit, beta) -> float:
     return float(1.0 / np.abs(beta(np.array([math.exp(root)])))[0])
 
 
-def _stability_checks(circuit: Circuit) -> list[Check]:
+#: A natural frequency counts as growing when its real part exceeds this fraction of its
+#: magnitude (eigenvalue round-off of a well-damped circuit sits many decades below).
+GROWTH_TOLERANCE = 1e-9
+
+
+def growth_rate_per_s(system: MnaSystem) -> float:
+    """The largest real part (1/s) of the circuit's natural frequencies, or 0 when every
+    one decays (:func:`service.engine.solver.mna.natural_frequencies`)."""
+    s = natural_frequencies(system)
+    growing = s.real > GROWTH_TOLERANCE * np.maximum(np.abs(s), 1.0)
+    return float(s.real[growing].max()) if growing.any() else 0.0
+
+
+def _stability_checks(circuit: Circuit, system: MnaSystem) -> list[Check]:
     op = circuit.opamp
     need = op.min_stable_gain
     out = []
@@ -209,6 +240,13 @@ def _stability_checks(circuit: Circuit) -> list[Check]:
         how = ("a follower of REF" if spare.r_feedback_ohm is None else
                f"an amplifier of REF ({spare.r_feedback_ohm:g}/{spare.r_gain_ohm:g} ohm)")
         entry(None, f"Spare unit {spare.index + 1}, wired as {how},", spare.noise_gain)
+    rate = growth_rate_per_s(system)
+    out.append(Check(
+        "stability", None, rate, 0.0, "", rate <= 0.0,
+        "Every natural frequency of the whole circuit decays (no loop through the shared "
+        "bias node or the supply rings up)." if rate <= 0.0 else
+        f"The whole circuit has a natural frequency growing at {rate:.3g} 1/s: a loop "
+        "closed through the shared bias node oscillates or latches."))
     return out
 
 
@@ -306,6 +344,9 @@ def _part_checks(circuit: Circuit, limits: Limits) -> list[Check]:
         out.append(Check("part_values", k, v, limits.max_capacitor_f, "F", ok,
                          f"Largest capacitor {v * 1e6:.4g} uF ({_where(k, role)}); limit "
                          f"{limits.max_capacitor_f * 1e6:.4g} uF."))
+    else:  # a DC-coupled chain: nothing to exceed the limit
+        out.append(Check("part_values", None, None, limits.max_capacitor_f, "F", True,
+                         "No capacitor in the signal path or bias network (DC coupled)."))
     v, k, role = min(res, key=lambda r: r[0])
     out.append(Check("part_values", k, v, limits.min_resistor_ohm, "ohm",
                      _at_least(v, limits.min_resistor_ohm),
@@ -424,8 +465,9 @@ def run_checks(circuit: Circuit, ctx: CheckContext, *, startup: bool = True) -> 
             _at_most(need, op.slew_v_per_us),
             f"Stage {k + 1} output needs {need:.3g} V/us (largest 2 pi f Vpeak {band_txt}); "
             f"the op-amp slews {op.slew_v_per_us:g} V/us."))
-    checks += _stability_checks(circuit)
-    checks += _ripple_checks(system, circuit, ctx.limits, band, ctx.ripple_frequencies_hz)
+    checks += _stability_checks(circuit, system)
+    checks += _ripple_checks(system, circuit, ctx.limits, ripple_band_hz(ctx),
+                             ctx.ripple_frequencies_hz)
     checks += _part_checks(circuit, ctx.limits)
     if op.output_current_max_a is not None:
         names = [f"Stage {k}" for k in range(1, n + 1)] + ["The VMID follower"]
@@ -498,7 +540,6 @@ __all__ = ["Check", "CheckContext", "run_checks", "failing", "supply_current_a",
 def ripple_excess_db(circuit: Circuit, ctx: CheckContext) -> float:
     """How far (dB) the worst ``supply_ripple`` entry sits above its limit (negative: the
     margin by which all pass; ``-inf`` when the circuit has no ripple path)."""
-    band = signal_band_hz(ctx.target, ctx.f_low_hz, ctx.f_high_hz)
-    entries = _ripple_checks(build(circuit), circuit, ctx.limits, band,
+    entries = _ripple_checks(build(circuit), circuit, ctx.limits, ripple_band_hz(ctx),
                              ctx.ripple_frequencies_hz)
     return max((c.value - c.limit for c in entries), default=-math.inf)

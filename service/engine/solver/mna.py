@@ -352,3 +352,16 @@ def stage_nodes(circuit: Circuit) -> list[StageNodes]:
         out.append(StageNodes(inp=x, plus=plus, minus=f"N{k}", out=f"O{k}"))
         x = f"O{k}"
     return out
+
+
+def natural_frequencies(system: MnaSystem) -> np.ndarray:
+    """Natural frequencies ``s`` (rad/s) of the circuit with every source zeroed: the finite
+    generalised eigenvalues of ``(G + s C) x = 0`` (scipy.linalg.eigvals of the pencil
+    ``(-G, C)``). The op-amp pole sits in ``C`` (module docstring), so a loop closed
+    through the shared bias node shows up here; a natural frequency with a positive real
+    part means the linear circuit's response grows: it oscillates or latches (common
+    practice)."""
+    from scipy.linalg import eigvals
+
+    s = eigvals(-system.g, system.c)
+    return s[np.isfinite(s)]

@@ -3,12 +3,16 @@
 The MNA system ``(G + s C) x = b`` is, in the time domain, the descriptor system
 ``C x' + G x = b u(t)`` (:mod:`service.engine.solver.mna`; the op-amp pole sits in ``C``).
 Every capacitor starts discharged (``x(0) = 0``) and the supply source steps to ``v_pos``
-at ``t = 0``. Integration is backward Euler, which is L-stable and so handles the
-algebraic rows and the op-amps' nanosecond poles next to the bias network's seconds
-(C. W. Gear, *Numerical Initial Value Problems in Ordinary Differential Equations*, 1971;
-cited from memory), on a geometric time grid from ``T_START_S`` with ratio ``STEP_RATIO``:
-the step stays a fixed fraction of the elapsed time, so every time constant is crossed in
-the same number of steps.
+at ``t = 0``. Integration is the two-step backward differentiation formula (BDF2) with
+variable steps, started by one backward-Euler step: both are stiffly stable, so they handle
+the algebraic rows and the op-amps' nanosecond poles next to the bias network's seconds,
+and BDF2's second order keeps lightly damped modes (a soft shared bias node) from being
+damped away numerically (C. W. Gear, *Numerical Initial Value Problems in Ordinary
+Differential Equations*, 1971; cited from memory). With ``w = h_n / h_(n-1)``:
+``C [(1+2w)/(1+w) x_(n+1) - (1+w) x_n + w^2/(1+w) x_(n-1)] / h_n + G x_(n+1) = b``.
+The time grid is geometric from ``T_START_S`` with ratio ``STEP_RATIO``: the step stays a
+fixed fraction of the elapsed time, so every time constant is crossed in the same number
+of steps.
 """
 
 from __future__ import annotations
@@ -42,12 +46,21 @@ def settling_time_s(system: MnaSystem, v_pos: float, band_v: float) -> float:
     if not np.any(np.abs(final) > band_v):  # nothing to charge: settled from the start
         return 0.0
     x = np.zeros(system.size)
+    x_old = None  # x one step back (None before the first step: backward Euler)
+    h_old = None
     t_prev, dev_prev = 0.0, math.inf
     t_now = T_START_S
     crossing = None  # time the deviation last fell inside the band (None: outside now)
     while t_now <= T_STOP_S:
         h = t_now - t_prev
-        x = np.linalg.solve(system.c / h + system.g, system.c @ x / h + b)
+        if x_old is None:
+            x_new = np.linalg.solve(system.c / h + system.g, system.c @ x / h + b)
+        else:
+            w = h / h_old
+            a0 = (1.0 + 2.0 * w) / (1.0 + w)
+            hist = (1.0 + w) * x - (w * w / (1.0 + w)) * x_old
+            x_new = np.linalg.solve(system.c * (a0 / h) + system.g, system.c @ hist / h + b)
+        x_old, x, h_old = x, x_new, h
         dev = float(np.max(np.abs(x[:n_nodes] - final)))
         if dev > band_v:
             crossing = None

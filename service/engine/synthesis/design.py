@@ -55,6 +55,7 @@ from service.engine.model.circuit import (
     Stage,
 )
 from service.engine.solver import chain, corners
+from service.engine.solver.mna import build as build_mna
 from service.engine.synthesis import ideal
 
 TWO_PI = 2.0 * math.pi
@@ -403,11 +404,13 @@ def _largest_capacitor(req: DesignRequest) -> float:
 
 def _bias_quality(req: DesignRequest, pairs, bias: Bias) -> tuple[bool, float]:
     """``(flat, ripple excess dB)`` of the circuit built on ``bias``: flat = no peaking
-    outside the band and the maximum inside the target band; ripple excess as
+    outside the band, the maximum inside the target band and no growing natural frequency
+    (a loop through a soft shared bias node); ripple excess as
     :func:`service.engine.judge.checks.ripple_excess_db` (<= 0 passes)."""
     circuit = _with_low_side(req, pairs, bias)
     ab = as_built(circuit, per_stage=False)
-    flat = flat_outside_band(ab, req.target, circuit)
+    flat = flat_outside_band(ab, req.target, circuit) and \
+        checks.growth_rate_per_s(build_mna(circuit)) <= 0.0
     ctx = checks.CheckContext(
         input_peak_v=req.signal.input_peak_v, target=req.target, limits=req.limits,
         f_low_hz=ab.f_low_hz, f_high_hz=ab.f_high_hz, peak_hz=ab.peak_hz,
