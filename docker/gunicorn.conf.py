@@ -71,6 +71,9 @@ capture_output = False
 # line is written once.
 logconfig_dict = {
     "formatters": {"generic": {"()": "service.ops.logs.JsonFormatter"}},
+    # gunicorn's default sends the root logger to stdout; any library record that reaches
+    # it goes to stderr with the rest.
+    "root": {"level": "INFO", "handlers": ["error_console"]},
     "loggers": {
         "gunicorn.error": {"level": _settings["log_level"], "handlers": ["error_console"],
                            "propagate": False, "qualname": "gunicorn.error"},

@@ -1,7 +1,7 @@
 """BOM lines shared by the CSV and the spreadsheet: one line per group of equal parts.
 
-Columns follow KiCad's built-in BOM export (format brief sec. 4): ``Reference``, ``Value``,
-``Datasheet``, ``Footprint``, ``Qty``, ``DNP``, then our fields. Parts group when value,
+Columns follow KiCad's built-in BOM export (KiCad schematic-editor manual, BOM):
+``Reference``, ``Value``, ``Datasheet``, ``Footprint``, ``Qty``, ``DNP``, then our fields. Parts group when value,
 footprint and every field agree; references are joined in natural order with a bare comma
 ("R1,R2,R10"); a multi-unit op-amp package counts once. Groups are ordered by their first
 reference (natural order). Every text cell is neutralised by :func:`exporters.names.cell_text`.
@@ -18,8 +18,9 @@ COLUMNS = ("Reference", "Value", "Datasheet", "Footprint", "Qty", "DNP", "Descri
 QTY_COLUMN = COLUMNS.index("Qty")
 
 
-def bom_lines(board: Board) -> list[list]:
-    """Rows (without the header): text cells as neutralised ``str``, ``Qty`` as ``int``."""
+def bom_lines(board: Board, *, text=cell_text) -> list[list]:
+    """Rows (without the header): text cells as ``text(cell)`` (CSV-neutralised by
+    default; the workbook passes :func:`exporters.names.sheet_text`), ``Qty`` as ``int``."""
     groups: dict[tuple, list[str]] = {}
     for part in board.parts:
         key = (part.value, part.footprint, part.description, part.field("Tolerance"),
@@ -32,5 +33,5 @@ def bom_lines(board: Board) -> list[list]:
         rows.append([join_refs(refs), value, "~", footprint, len(refs), "", description, tol,
                      volt, diel, manufacturer, mpn])
     rows.sort(key=lambda row: natural_key(row[0].split(",")[0]))
-    return [[cell if isinstance(cell, int) else cell_text(cell) for cell in row]
+    return [[cell if isinstance(cell, int) else text(cell) for cell in row]
             for row in rows]

@@ -12,6 +12,7 @@ import time
 
 from marshmallow import ValidationError
 
+from schemas.opamp import swing_window_error
 from schemas.request import AnalysisRequestSchema, DesignRequestSchema
 from service.engine.synthesis import design as design_mod
 from service.engine.judge import extras
@@ -43,6 +44,11 @@ def load_design_request(body, catalog=None) -> tuple[DesignRequest, dict]:
             raise ValidationError({"opamp": [f"Unknown catalog id {opamp!r}; GET /v1/opamps "
                                              "lists the catalog."]})
         opamp = found
+    swing = swing_window_error(opamp.swing_to_pos_v, opamp.swing_to_neg_v,
+                               data["supply"].span_v, "the requested supply span")
+    if swing:
+        where = [swing] if isinstance(data["opamp"], str) else {"swing_to_pos_v": [swing]}
+        raise ValidationError({"opamp": where})
     req = DesignRequest(target=data["target"], supply=data["supply"], opamp=opamp,
                         signal=data["signal"], topology=data["topology"], stages=data["stages"],
                         components=data["components"], strict=data["strict"],
@@ -92,12 +98,18 @@ def run_design(body, catalog=None) -> dict:
     check = _deadline()
     result = design_mod.design(req, check_deadline=check)
     if req.strict and result.status != "meets_target":
-        best = design_mod.best_design(req, check_deadline=check)
+        if req.stages is not None:
+            # A fixed stage count is part of the request: the best design keeps it.
+            best = result
+            detail = (f"The {req.stages}-stage cascade asked for misses the target; "
+                      "'best_design' holds that design.")
+        else:
+            best = design_mod.best_design(req, check_deadline=check)
+            detail = ("No cascade of this op-amp meets the target; 'best_design' holds the "
+                      "stage count with the highest as-built f_high.")
         best_body = _design_body(best, options)
         raise ApiProblem(
-            422, "Target not met",
-            "No cascade of this op-amp meets the target; 'best_design' holds the stage count "
-            "with the highest as-built f_high.",
+            422, "Target not met", detail,
             type_="target-not-met", shortfalls=best_body["shortfalls"], best_design=best_body)
     out = _design_body(result, options)
     _observe(time.perf_counter() - started)

@@ -33,6 +33,7 @@ from service.errors import ApiProblem, get_json_body
 bp = Blueprint("exports", __name__)
 
 MAX_NAME_CHARS = 80
+MIN_DATE = dt.date(1900, 1, 1)
 _CIRCUIT_BODY_KEYS = ("name", "circuit")
 
 
@@ -72,6 +73,12 @@ def _options() -> tuple[str, dt.date | None]:
             date = dt.date.fromisoformat(raw_date)
         except ValueError:
             errors["date"] = ["Not a valid ISO date (YYYY-MM-DD)."]
+        else:
+            if date < MIN_DATE:
+                # Spreadsheet date serials start at 1900-01-01 (ECMA-376 Part 1, 18.17.4):
+                # an xlsx cannot hold an earlier date.
+                errors["date"] = [f"From {MIN_DATE.isoformat()} on (spreadsheets cannot "
+                                  "hold earlier dates)."]
     if errors:
         raise ValidationError({"query": errors})
     return size, date

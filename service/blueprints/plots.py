@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import io
 import math
+import re
 
 from flask import Blueprint, Response, request
 from marshmallow import ValidationError
@@ -26,20 +27,30 @@ DPI = 100
 CURVE_POINTS = 400
 
 
+QUERY_PARAMETERS = ("width_px", "height_px")
+_ASCII_INT_RE = re.compile(r"[0-9]{1,5}")
+
+
 def _size() -> tuple[int, int]:
-    errors = {}
+    """The image size from the query; unknown parameters are refused (as on exports).
+
+    Digits are ASCII only: ``str.isdigit`` also accepts superscripts such as "²", which
+    ``int()`` then refuses.
+    """
+    errors = {key: [f"Unknown query parameter; allowed: {', '.join(QUERY_PARAMETERS)}."]
+              for key in request.args if key not in QUERY_PARAMETERS}
     sizes = []
     for name, default in (("width_px", DEFAULT_WIDTH_PX), ("height_px", DEFAULT_HEIGHT_PX)):
         raw = request.args.get(name)
         if raw is None:
             sizes.append(default)
             continue
-        if not raw.isdigit() or not MIN_PX <= int(raw) <= MAX_PX:
-            errors[name] = [f"An integer from {MIN_PX} to {MAX_PX} (got {raw!r})."]
+        if not _ASCII_INT_RE.fullmatch(raw) or not MIN_PX <= int(raw) <= MAX_PX:
+            errors[name] = [f"An integer from {MIN_PX} to {MAX_PX} (got {ascii(raw[:20])})."]
             continue
         sizes.append(int(raw))
     if errors:
-        raise ValidationError(errors)
+        raise ValidationError({"query": errors})
     return sizes[0], sizes[1]
 
 

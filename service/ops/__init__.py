@@ -45,6 +45,7 @@ def init_app(app: Flask) -> None:
     budget_s = float(app.config.get("GAINCHAIN_COMPUTE_BUDGET_S") or 10.0)
     max_body = app.config.get("MAX_CONTENT_LENGTH")
     logger = logs.configure(app.config.get("GAINCHAIN_LOG_LEVEL") or "INFO")
+    logs.route_flask_logger(app)
     app.extensions["gainchain_ops"] = {
         "auth_enabled": bool(key_digests),
         "cors_origins": allowed_origins,
@@ -56,11 +57,13 @@ def init_app(app: Flask) -> None:
         g.request_started = time.perf_counter()
         g.request_id = logs.request_id_from(request.headers.get("X-Request-ID"))
         budget.start(budget_s)
-        if cors.is_preflight(request):  # exempt from auth: browsers send no credentials
+        if cors.is_preflight(request):
+            # Exempt from auth only for an allowed origin (browsers send preflights without
+            # credentials). Any other OPTIONS, CORS on or off, needs a key like every
+            # request, so it cannot be used to list routes.
             origin = cors.allowed_origin(request, allowed_origins)
             if origin:
                 return cors.preflight_response(origin)
-            return None  # not ours: Flask's default OPTIONS answer, without CORS headers
         auth.check_request(request, key_digests)
         _check_declared_length(max_body)
         _buffer_unsized_body(max_body)

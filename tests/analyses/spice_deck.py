@@ -4,7 +4,7 @@ and a runner for ngspice in batch mode.
 The deck follows the circuit model of issue 2 element by element: ideal source Vs behind the
 source impedance, every stage's parts, the bias divider with its bypass and optional
 follower, the output capacitor and load, and VCC as a voltage source. Each op-amp unit is a
-single-pole macro model (format brief sec. 5): ``E1`` of gain A0 into an RC pole at
+single-pole macro model (ngspice manual: E source, R, C): ``E1`` of gain A0 into an RC pole at
 GBW/A0 and a unity buffer ``E2``, no input resistance and zero output resistance. The pole's
 resistor is marked ``noisy=0`` so ngspice's ``.noise`` counts only the circuit's resistors.
 Optional PSRR: an E source of gain ``10**(-psrr_db/20)`` from VCC in series with each

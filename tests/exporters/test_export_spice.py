@@ -2,7 +2,7 @@
 
 References: ngspice 39 (Debian package) in batch mode, reading the deck exactly as exported;
 the engine's nodal solution ``service.engine.solver.chain.solve`` and corner finder
-``service.engine.solver.corners.find_band``. Deck rules from the format brief (eda-formats.md sec. 5).
+``service.engine.solver.corners.find_band``. Deck rules from the ngspice user manual.
 """
 
 from __future__ import annotations
@@ -79,7 +79,7 @@ def test_ngspice_one_to_six_stages(make, n):
 
 @pytest.mark.parametrize("name", HOSTILE_NAMES)
 def test_hostile_title_is_inert_in_ngspice(name):
-    """A name carrying a newline + .control/shell runs nothing (format brief sec. 5)."""
+    """A name carrying a newline + .control/shell runs nothing (ngspice manual)."""
     require_ngspice()
     deck = spice_deck(build_board(single_ni(1), name=name))
     stdout, listing = run_deck(deck)
@@ -102,7 +102,8 @@ def test_deck_has_no_control_content(name):
 
 
 def test_deck_structure_rules():
-    """Brief sec. 5: one AC source, RLOAD at OUT, exponent numbers, .print of v(out)."""
+    """ngspice manual (.ac, .print): one AC source, RLOAD at OUT, exponent numbers, .print
+    of v(out)."""
     deck = spice_deck(build_board(single_ni(3, buffered=True)))
     statements = [ln for ln in deck.splitlines()[1:] if not ln.startswith("*")]
     sources = [ln for ln in statements if " AC " in ln.upper() and not ln.startswith(".")]
