@@ -72,6 +72,11 @@ def from_environment(env=None) -> dict:
         "GAINCHAIN_CORS_ORIGINS": _csv(env, "GAINCHAIN_CORS_ORIGINS"),
         # Wall-clock compute budget per request, in seconds (checked by the engine callers).
         "GAINCHAIN_COMPUTE_BUDGET_S": _float(env, "GAINCHAIN_COMPUTE_BUDGET_S", 10.0),
+        # Estimated cost and reply size a request may have (service.ops.cost), else 422.
+        "GAINCHAIN_MAX_COST_UNITS": _int(env, "GAINCHAIN_MAX_COST_UNITS", 300_000,
+                                         minimum=1),
+        "GAINCHAIN_MAX_REPLY_BYTES": _int(env, "GAINCHAIN_MAX_REPLY_BYTES", 8 * 1024 * 1024,
+                                          minimum=1024),
         "GAINCHAIN_LOG_LEVEL": _choice(env, "GAINCHAIN_LOG_LEVEL", "INFO", LOG_LEVELS),
         # Set by the process manager (gunicorn.conf.py does it for you); when set, /metrics
         # aggregates the counters of every worker process.

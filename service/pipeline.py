@@ -116,9 +116,24 @@ def run_design(body, catalog=None) -> dict:
     return out
 
 
+def _charge(n_stages: int, options: dict, what: str) -> None:
+    """Count this design's (or analysis') cost and reply size before its analyses run
+    (:mod:`service.ops.cost`; 422 naming the costliest option when it is too much)."""
+    from service.ops import cost
+
+    trials = int((options.get("tolerance") or {}).get("trials") or 0)
+    points = int((options.get("response") or {}).get("points") or 0)
+    cost.charge(cost.design_units(n_stages, trials=trials, points=points),
+                reply=cost.design_reply_bytes(n_stages, points=points),
+                field=cost.costliest_field(n_stages, trials=trials, points=points),
+                what=f"{what} with {n_stages} stages, {trials} Monte Carlo trials and "
+                     f"{points} response points")
+
+
 def _design_body(result: design_mod.Design, options: dict) -> dict:
-    out = report.design_block(result)
     circuit = result.synthesis.circuit
+    _charge(circuit.n_stages, options, "This design")
+    out = report.design_block(result)
     out.update(extras.extra_blocks(
         circuit, target=result.request.target, input_peak_v=result.request.signal.input_peak_v,
         as_built=out["performance"]["as_built"], options=options, check_deadline=_deadline()))
@@ -133,9 +148,10 @@ def run_analysis(body) -> dict:
     data = _ANALYSIS_SCHEMA.load(body)
     circuit: Circuit = data["circuit"]
     target = data.get("target")
+    options = _options(data)
+    _charge(circuit.n_stages, options, "This analysis")
     out = {"name": data.get("name")}
     out.update(report.analysis_block(circuit, target=target, input_peak_v=data["input_peak_v"]))
-    options = _options(data)
     out.update(extras.extra_blocks(circuit, target=target, input_peak_v=data["input_peak_v"],
                                    as_built=out["performance"]["as_built"], options=options,
                                    check_deadline=_deadline()))

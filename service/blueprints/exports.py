@@ -29,6 +29,7 @@ from exporters.board import SIZES
 from exporters.formats import KINDS, export
 from service.engine.model.circuit import Circuit
 from service.errors import ApiProblem, get_json_body
+from service.ops import budget
 
 bp = Blueprint("exports", __name__)
 
@@ -52,7 +53,9 @@ def create_export(kind: str):
         circuit, name, report, tolerances = _from_circuit_body(body)
     else:
         circuit, name, report, tolerances = _from_design_request(body)
+    budget.check("before writing the file")
     file = export(kind, circuit, name=name, report=report, size=size, date=date, **tolerances)
+    budget.check("writing the file")  # a file finished past the budget is not sent
     resp = Response(file.data, mimetype=None, content_type=file.mimetype)
     resp.headers["Content-Disposition"] = f'attachment; filename="{file.filename}"'
     return resp

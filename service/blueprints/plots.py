@@ -17,6 +17,7 @@ from flask import Blueprint, Response, request
 from marshmallow import ValidationError
 
 from service.errors import get_json_body
+from service.ops import budget, cost
 from service.pipeline import run_analysis, run_design
 
 bp = Blueprint("plots", __name__, url_prefix="/v1/plots")
@@ -133,8 +134,13 @@ def _num(values):
 
 def _plot(fmt: str, mimetype: str) -> Response:
     width_px, height_px = _size()
-    result, target = _result_and_target(get_json_body())
+    body = get_json_body()
+    cost.charge(cost.plot_units(width_px, height_px), field="query.width_px",
+                what=f"A {width_px} x {height_px} px plot")
+    result, target = _result_and_target(body)
+    budget.check("before drawing the plot")
     data = render(result, target, fmt=fmt, width_px=width_px, height_px=height_px)
+    budget.check("drawing the plot")  # a plot finished past the budget is not sent
     return Response(data, status=200, mimetype=mimetype)
 
 

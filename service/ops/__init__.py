@@ -3,7 +3,8 @@
 ``init_app(app)`` installs, in this order of execution for each request:
 
 1. request id (``X-Request-ID`` kept or generated) and the latency clock;
-2. the compute budget's deadline (:mod:`service.ops.budget`);
+2. the compute budget's deadline (:mod:`service.ops.budget`) and the cost meter
+   (:mod:`service.ops.cost`);
 3. CORS preflight answers for allowed origins (:mod:`service.ops.cors`);
 4. API-key authentication (:mod:`service.ops.auth`), before any view reads the body;
 5. the body-size limit: a declared ``Content-Length`` above ``GAINCHAIN_MAX_BODY_BYTES`` is
@@ -25,7 +26,7 @@ import time
 
 from flask import Flask, g, request
 
-from service.ops import auth, budget, cors, logs, metrics
+from service.ops import auth, budget, cors, cost, logs, metrics
 
 SECURITY_HEADERS = {
     "X-Content-Type-Options": "nosniff",
@@ -43,6 +44,10 @@ def init_app(app: Flask) -> None:
     key_digests = auth.load_keys(app.config)
     allowed_origins = frozenset(app.config.get("GAINCHAIN_CORS_ORIGINS") or ())
     budget_s = float(app.config.get("GAINCHAIN_COMPUTE_BUDGET_S") or 10.0)
+    max_cost_units = int(app.config.get("GAINCHAIN_MAX_COST_UNITS")
+                         or cost.DEFAULT_MAX_COST_UNITS)
+    max_reply_bytes = int(app.config.get("GAINCHAIN_MAX_REPLY_BYTES")
+                          or cost.DEFAULT_MAX_REPLY_BYTES)
     max_body = app.config.get("MAX_CONTENT_LENGTH")
     logger = logs.configure(app.config.get("GAINCHAIN_LOG_LEVEL") or "INFO")
     logs.route_flask_logger(app)
@@ -57,6 +62,7 @@ def init_app(app: Flask) -> None:
         g.request_started = time.perf_counter()
         g.request_id = logs.request_id_from(request.headers.get("X-Request-ID"))
         budget.start(budget_s)
+        cost.start(max_cost_units, max_reply_bytes)
         if cors.is_preflight(request):
             # Exempt from auth only for an allowed origin (browsers send preflights without
             # credentials). Any other OPTIONS, CORS on or off, needs a key like every
