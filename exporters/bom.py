@@ -1,8 +1,8 @@
 """BOM lines shared by the CSV and the spreadsheet: one line per group of equal parts.
 
 Columns follow KiCad's built-in BOM export (KiCad schematic-editor manual, BOM):
-``Reference``, ``Value``, ``Datasheet``, ``Footprint``, ``Qty``, ``DNP``, then our fields. Parts group when value,
-footprint and every field agree; references are joined in natural order with a bare comma
+``Reference``, ``Value``, ``Datasheet``, ``Footprint``, ``Qty``, ``DNP``, then our fields.
+Parts group when value, footprint and every field agree; references are joined in natural order with a bare comma
 ("R1,R2,R10"); a multi-unit op-amp package counts once. Groups are ordered by their first
 reference (natural order). Every text cell is neutralised by :func:`exporters.names.cell_text`.
 """
