@@ -2,9 +2,10 @@
 
 Columns follow KiCad's built-in BOM export (KiCad schematic-editor manual, BOM):
 ``Reference``, ``Value``, ``Datasheet``, ``Footprint``, ``Qty``, ``DNP``, then our fields.
-Parts group when value, footprint and every field agree; references are joined in natural order with a bare comma
-("R1,R2,R10"); a multi-unit op-amp package counts once. Groups are ordered by their first
-reference (natural order). Every text cell is neutralised by :func:`exporters.names.cell_text`.
+Parts group when value, footprint and every field agree; references are joined in natural
+order with a bare comma ("R1,R2,R10"); a multi-unit op-amp package counts once. Groups are
+ordered by their first reference (natural order). Every text cell is neutralised by
+:func:`exporters.names.cell_text`.
 """
 
 from __future__ import annotations
