@@ -101,6 +101,11 @@ def server_settings(env=None, *, cpu_count: int | None = None) -> dict:
         "host": (env.get("HOST") or "127.0.0.1").strip(),
         "port": _int(env, "PORT", 8000, minimum=1),
         "workers": _int(env, "GAINCHAIN_WORKERS", max(2, cpus), minimum=1),
+        # Threads per worker (gthread): a probe or a cheap request finds a free thread while
+        # long computations run in others (README, "Concurrency").
+        "threads": _int(env, "GAINCHAIN_THREADS", 4, minimum=1),
+        # Where gunicorn listens; the front (docker/front.py) sets a Unix socket here.
+        "bind": (env.get("GAINCHAIN_BIND") or "").strip() or None,
         "timeout_s": _int(env, "GAINCHAIN_WORKER_TIMEOUT_S", 30, minimum=1),
         "log_level": _choice(env, "GAINCHAIN_LOG_LEVEL", "INFO", LOG_LEVELS),
     }

@@ -12,6 +12,7 @@ from __future__ import annotations
 import io
 import math
 import re
+import threading
 
 from flask import Blueprint, Response, request
 from marshmallow import ValidationError
@@ -77,9 +78,20 @@ def _target_gain_db(target: dict) -> float | None:
     return None
 
 
+#: matplotlib's rcParams (set by rc_context below) are process-wide: one drawing at a time
+#: per worker process, so threads (gthread workers) never see each other's settings.
+_RENDER_LOCK = threading.Lock()
+
+
 def render(result: dict, target: dict | None, *, fmt: str, width_px: int,
            height_px: int) -> bytes:
     """Draw the Bode plot of a design/analysis result; ``fmt`` is "svg" or "png"."""
+    with _RENDER_LOCK:
+        return _render(result, target, fmt=fmt, width_px=width_px, height_px=height_px)
+
+
+def _render(result: dict, target: dict | None, *, fmt: str, width_px: int,
+            height_px: int) -> bytes:
     import matplotlib
 
     matplotlib.use("Agg", force=False)
