@@ -142,8 +142,8 @@ for key, value in ns.items():
         cfg.set(key, value)
 names = ["bind", "workers", "worker_class", "threads", "timeout", "graceful_timeout",
          "max_requests", "max_requests_jitter", "preload_app", "limit_request_line",
-         "limit_request_fields", "limit_request_field_size", "control_socket_disable", "forwarded_allow_ips",
-         "errorlog", "accesslog"]
+         "limit_request_fields", "limit_request_field_size", "control_socket_disable",
+         "forwarded_allow_ips", "errorlog", "accesslog"]
 out = {n: getattr(cfg, n) for n in names}
 out["defaults"] = {n: cfg.settings[n].default for n in ("limit_request_line",
     "limit_request_fields", "limit_request_field_size", "forwarded_allow_ips")}
