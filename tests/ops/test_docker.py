@@ -151,6 +151,7 @@ out["hooks"] = sorted(k for k in ("child_exit", "on_exit") if callable(ns.get(k)
 out["set_names"] = sorted(k for k in ns if k in cfg.settings)
 out["multiproc"] = ns["os"].environ.get("PROMETHEUS_MULTIPROC_DIR")
 out["omp"] = ns["os"].environ.get("OMP_NUM_THREADS")
+out["root_handlers"] = ns["logconfig_dict"].get("root", {}).get("handlers")
 ns["on_exit"](None)
 print(json.dumps(out, default=str))
 """
@@ -188,5 +189,11 @@ def test_gunicorn_config_values():
     assert cfg["errorlog"] == "-"
     assert cfg["hooks"] == ["child_exit", "on_exit"]
     assert cfg["omp"] == "1"
+    # Issue 10: gunicorn's logging defaults send the root logger to stdout; here it goes to
+    # gunicorn's stderr handler (gunicorn.glogging.CONFIG_DEFAULTS names its stream).
+    from gunicorn.glogging import CONFIG_DEFAULTS
+
+    assert cfg["root_handlers"] == ["error_console"]
+    assert CONFIG_DEFAULTS["handlers"]["error_console"]["stream"] == "ext://sys.stderr"
     assert cfg["multiproc"] and "gainchain-metrics-" in cfg["multiproc"]
     assert not Path(cfg["multiproc"]).exists()  # on_exit removed the directory it made
