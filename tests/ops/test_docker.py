@@ -197,3 +197,16 @@ def test_gunicorn_config_values():
     assert CONFIG_DEFAULTS["handlers"]["error_console"]["stream"] == "ext://sys.stderr"
     assert cfg["multiproc"] and "gainchain-metrics-" in cfg["multiproc"]
     assert not Path(cfg["multiproc"]).exists()  # on_exit removed the directory it made
+
+
+def test_final_stage_carries_the_front(parsed):
+    # Issue 10: the container's path has the front too: Debian's nginx, the launcher and
+    # the shared nginx configuration in the image, both ports exposed.
+    final = parsed[-1]
+    runs = " ".join(args for kw, args in final if kw == "RUN")
+    assert re.search(r"apt-get install -y --no-install-recommends nginx\b", runs)
+    assert "rm -rf /var/lib/apt/lists/*" in runs
+    copies = " ".join(args for kw, args in final if kw == "COPY")
+    assert "docker/front.py" in copies and "docker/nginx" in copies
+    exposed = " ".join(args for kw, args in final if kw == "EXPOSE").split()
+    assert exposed == ["8000", "9100"]
