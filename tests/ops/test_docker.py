@@ -152,6 +152,8 @@ out["set_names"] = sorted(k for k in ns if k in cfg.settings)
 out["multiproc"] = ns["os"].environ.get("PROMETHEUS_MULTIPROC_DIR")
 out["omp"] = ns["os"].environ.get("OMP_NUM_THREADS")
 out["root_handlers"] = ns["logconfig_dict"].get("root", {}).get("handlers")
+import gunicorn.util
+out["write_error"] = gunicorn.util.write_error.__module__
 ns["on_exit"](None)
 print(json.dumps(out, default=str))
 """
@@ -194,6 +196,8 @@ def test_gunicorn_config_values():
     from gunicorn.glogging import CONFIG_DEFAULTS
 
     assert cfg["root_handlers"] == ["error_console"]
+    # gunicorn's own refusals (400/414/431...) go through the problem+json writer.
+    assert cfg["write_error"] == "service.ops.gunicorn_errors"
     assert CONFIG_DEFAULTS["handlers"]["error_console"]["stream"] == "ext://sys.stderr"
     assert cfg["multiproc"] and "gainchain-metrics-" in cfg["multiproc"]
     assert not Path(cfg["multiproc"]).exists()  # on_exit removed the directory it made
