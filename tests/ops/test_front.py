@@ -247,6 +247,7 @@ def _slow_body_client(port: int, seconds_: int, errors: list) -> None:
         errors.append(exc)
 
 
+@pytest.mark.slow
 def test_slow_header_clients_do_not_hold_workers(front):
     # Two connections sending one header line a second kept /healthz unanswered before.
     errors: list = []
@@ -259,6 +260,7 @@ def test_slow_header_clients_do_not_hold_workers(front):
     assert max(times) < PROBE_TIMEOUT_S and len(times) >= 5
 
 
+@pytest.mark.slow
 def test_slow_body_clients_do_not_hold_workers(front):
     errors: list = []
     clients = [threading.Thread(target=_slow_body_client, args=(front.port, 5, errors))
@@ -270,6 +272,7 @@ def test_slow_body_clients_do_not_hold_workers(front):
     assert max(times) < PROBE_TIMEOUT_S and len(times) >= 5
 
 
+@pytest.mark.slow
 def test_slow_readers_get_whole_replies_and_hold_no_worker(front):
     # A ~1 MB reply (12 stages x 2000 response points) to clients that do not read: the
     # front takes it from gunicorn at once; the workers stay free; the readers later get
@@ -308,6 +311,7 @@ def test_slow_readers_get_whole_replies_and_hold_no_worker(front):
         assert len(doc["response"]["frequency_hz"]) == 2000
 
 
+@pytest.mark.slow
 def test_two_maximal_requests_leave_healthz_answering(front):
     # Issue 10's availability goal: two maximal valid requests in flight, /healthz within
     # 1 s (gthread workers: a probe finds a free thread; README "Concurrency").
@@ -329,6 +333,7 @@ def test_two_maximal_requests_leave_healthz_answering(front):
     assert max(times) < PROBE_TIMEOUT_S and len(times) >= 2
 
 
+@pytest.mark.slow
 def test_per_client_rate_limit_is_429_problem_json(front):
     statuses, last = [], None
     for _ in range(80):  # far above 20/s with a burst of 40, as fast as one client can
@@ -344,6 +349,7 @@ def test_per_client_rate_limit_is_429_problem_json(front):
     time.sleep(2.5)  # let the bucket refill for the other tests
 
 
+@pytest.mark.slow
 def test_front_refusals_are_problem_json(front):
     long_line = "/v1/opamps?" + "a" * 5000
     status, headers, body = get(front.port, long_line)
@@ -357,3 +363,58 @@ def test_front_refusals_are_problem_json(front):
         data = sock.recv(65536)
     assert data.startswith(b"HTTP/1.1 400") and b"application/problem+json" in data
     time.sleep(1.0)
+
+
+@pytest.mark.slow
+def test_gunicorn_reached_directly_refuses_with_problem_json(tmp_path):
+    # The review's finding: gunicorn's own 414/431 were HTML without the security headers.
+    # gunicorn alone (as a client that bypasses the front would meet it), on a free port.
+    import os
+    import signal
+    import sys
+
+    from .front_support import free_port
+
+    port = free_port()
+    env = {k: v for k, v in os.environ.items() if not k.startswith("GAINCHAIN_")}
+    env.update({"GAINCHAIN_BIND": f"127.0.0.1:{port}", "GAINCHAIN_WORKERS": "1",
+                "PROMETHEUS_MULTIPROC_DIR": str(tmp_path / "prom"), "OMP_NUM_THREADS": "1"})
+    log = open(tmp_path / "stderr.log", "wb")
+    proc = subprocess.Popen([sys.executable, "-m", "gunicorn", "-c",
+                             str(DOCKER / "gunicorn.conf.py"), "service:create_app()"],
+                            cwd=ROOT, env=env, stdout=subprocess.DEVNULL, stderr=log,
+                            start_new_session=True)
+    try:
+        deadline = time.monotonic() + 60
+        while True:
+            try:
+                if get(port, "/healthz", timeout=1.0)[0] == 200:
+                    break
+            except OSError:
+                pass
+            assert proc.poll() is None and time.monotonic() < deadline, "gunicorn did not start"
+            time.sleep(0.2)
+        for raw, status in ((b"GET /" + b"a" * 9000 + b" HTTP/1.1\r\nHost: t\r\n\r\n", 414),
+                            (b"GET / HTTP/1.1\r\nHost: t\r\nX-Big: " + b"b" * 9000
+                             + b"\r\n\r\n", 431)):
+            with socket.create_connection(("127.0.0.1", port), timeout=10) as sock:
+                sock.sendall(raw)
+                data = b""
+                while True:
+                    chunk = sock.recv(65536)
+                    if not chunk:
+                        break
+                    data += chunk
+            head, _, body = data.partition(b"\r\n\r\n")
+            assert head.startswith(b"HTTP/1.1 %d" % status), head
+            assert b"Content-Type: application/problem+json" in head
+            assert b"X-Content-Type-Options: nosniff" in head
+            assert json.loads(body)["status"] == status
+    finally:
+        proc.send_signal(signal.SIGTERM)
+        try:
+            proc.wait(timeout=30)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.wait()
+        log.close()
