@@ -26,6 +26,7 @@ from __future__ import annotations
 import ipaddress
 import json
 import os
+import re
 import shutil
 import signal
 import subprocess
@@ -72,6 +73,8 @@ def render(runtime_dir: Path, env=None) -> Path:
     """Write the front's nginx.conf (and the shared files) into ``runtime_dir``."""
     env = os.environ if env is None else env
     host = (env.get("HOST") or "127.0.0.1").strip()
+    if not re.fullmatch(r"[A-Za-z0-9.:-]{1,253}", host):
+        raise SystemExit(f"HOST must be an address or a host name, got {host!r}")
     port = _port(env, "PORT", 8000)
     metrics_port = _port(env, "GAINCHAIN_METRICS_PORT", DEFAULT_METRICS_PORT)
     raw_body = (env.get("GAINCHAIN_MAX_BODY_BYTES") or "").strip() or str(DEFAULT_MAX_BODY_BYTES)

@@ -164,6 +164,11 @@ def test_trusted_proxies_are_validated():
                                                                    "192.168.1.7/32"]
     with pytest.raises(SystemExit, match="GAINCHAIN_TRUSTED_PROXIES"):
         front.trusted_proxies("10.0.0.0/8; rm -rf /")
+    # Settings that end up in nginx's configuration cannot carry directives.
+    with pytest.raises(SystemExit, match="HOST"):
+        front.render(Path("/nonexistent"), {"HOST": "0.0.0.0; include /etc/passwd"})
+    with pytest.raises(SystemExit, match="GAINCHAIN_MAX_BODY_BYTES"):
+        front.render(Path("/nonexistent"), {"GAINCHAIN_MAX_BODY_BYTES": "1k; x"})
 
 
 @pytest.mark.skipif(NGINX is None, reason="nginx not installed")
