@@ -20,8 +20,12 @@ $(VENV)/.installed-test: pyproject.toml | $(BIN)/python
 serve: $(VENV)/.installed
 	@$(BIN)/python -m service.devserver --host $(HOST) --port $(PORT)
 
+# serve-prod: the production stack on this machine, exactly as the container runs it: nginx
+# (the front: slow-client timeouts, buffering, per-client limits) before gunicorn's workers.
+# For checking a release locally; in production use the image, compose or docker/k8s.
 serve-prod: $(VENV)/.installed
-	HOST=$(HOST) PORT=$(PORT) $(BIN)/gunicorn -c docker/gunicorn.conf.py 'service:create_app()'
+	@echo "serve-prod: nginx front on $(HOST):$(PORT) before gunicorn (as in the container); needs nginx (apt-get install nginx)"
+	HOST=$(HOST) PORT=$(PORT) $(BIN)/python docker/front.py
 
 test: $(VENV)/.installed-test
 	$(BIN)/python -m pytest -q

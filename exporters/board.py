@@ -54,7 +54,8 @@ _C_FOOTPRINT = {"0603": "Capacitor_SMD:C_0603_1608Metric",
                 "0805": "Capacitor_SMD:C_0805_2012Metric",
                 "1206": "Capacitor_SMD:C_1206_3216Metric"}
 #: SMD aluminium electrolytic cases by rated C x V (uF x V), smallest first. Typical
-#: catalogue ranges, from memory (common practice); footprint names from the format brief.
+#: catalogue ranges, from memory (common practice); footprint names from KiCad's
+#: standard footprint libraries (KiCad Library Conventions).
 _CP_CASES = ((100.0, "Capacitor_SMD:CP_Elec_4x5.4"), (250.0, "Capacitor_SMD:CP_Elec_5x5.4"),
              (500.0, "Capacitor_SMD:CP_Elec_6.3x5.4"), (1000.0, "Capacitor_SMD:CP_Elec_6.3x7.7"),
              (2500.0, "Capacitor_SMD:CP_Elec_8x10"), (float("inf"), "Capacitor_SMD:CP_Elec_10x10"))
@@ -78,7 +79,7 @@ ELECTROLYTIC_RATINGS_V = (6.3, 10.0, 16.0, 25.0, 35.0, 50.0, 63.0, 100.0, 160.0,
 ELECTROLYTIC_TOLERANCE = "20%"  # typical aluminium electrolytic tolerance (common practice)
 BIPOLAR_BELOW_V = 0.5
 
-#: Package pinouts (de facto industry standard; format brief sec. 1): unit -> (+in, -in, out).
+#: Package pinouts (de facto industry standard, common practice): unit -> (+in, -in, out).
 PINOUTS = {
     1: {"units": {"A": ("3", "2", "6")}, "vpos": "7", "vneg": "4", "pins": 8},
     2: {"units": {"A": ("3", "2", "1"), "B": ("5", "6", "7")}, "vpos": "8", "vneg": "4",
@@ -86,7 +87,8 @@ PINOUTS = {
     4: {"units": {"A": ("3", "2", "1"), "B": ("5", "6", "7"), "C": ("10", "9", "8"),
                   "D": ("12", "13", "14")}, "vpos": "4", "vneg": "11", "pins": 14},
 }
-#: Symbols (format brief sec. 1): the generic dual and quad sit in ``Device`` in KiCad 5.1
+#: Symbols (KiCad's standard symbol libraries, from memory): the generic dual and quad
+#: sit in ``Device`` in KiCad 5.1
 #: and 6.0; there is no generic 8-pin single, so its symbol comes from the organisation's
 #: own library (configurable through ``opamp_symbols``).
 DEFAULT_OPAMP_SYMBOLS = {1: ("gainchain", "Opamp_Single_8pin"), 2: ("Device", "Opamp_Dual"),

@@ -1,6 +1,7 @@
 """BOM lines shared by the CSV and the spreadsheet: one line per group of equal parts.
 
-Columns follow KiCad's built-in BOM export (format brief sec. 4): ``Reference``, ``Value``,
+Columns follow KiCad's built-in BOM export (KiCad schematic-editor manual, BOM):
+``Reference``, ``Value``,
 ``Datasheet``, ``Footprint``, ``Qty``, ``DNP``, then our fields, then the stock columns
 ``Internal PN``, ``Unit cost``, ``Extended cost`` (unit cost x Qty), ``Stocked`` ("yes" |
 "no") and ``Design ID`` (the design identity, ``service.engine.model.identity``, on every
@@ -55,8 +56,10 @@ def _groups(board: Board) -> list[tuple[list[str], object]]:
     return out
 
 
-def bom_lines(board: Board, library: PartsLibrary | None = None) -> list[list]:
-    """Rows (without the header): text cells as neutralised ``str``, ``Qty`` as ``int``,
+def bom_lines(board: Board, library: PartsLibrary | None = None, *,
+              text=cell_text) -> list[list]:
+    """Rows (without the header): text cells as ``text(cell)`` (CSV-neutralised by
+    default; the workbook passes :func:`exporters.names.sheet_text`), ``Qty`` as ``int``,
     costs as ``Decimal`` (or ``""`` when not priced)."""
     rows = []
     for refs, part in _groups(board):
@@ -74,7 +77,7 @@ def bom_lines(board: Board, library: PartsLibrary | None = None) -> list[list]:
                      part.description, part.field("Tolerance"), part.field("Voltage"),
                      part.field("Dielectric"), manufacturer, mpn, internal_pn, unit, extended,
                      "yes" if stock is not None else "no", board.design_id])
-    return [[cell if isinstance(cell, int | Decimal) else cell_text(cell) for cell in row]
+    return [[cell if isinstance(cell, int | Decimal) else text(cell) for cell in row]
             for row in rows]
 
 

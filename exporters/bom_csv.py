@@ -1,6 +1,7 @@
 """KiCad-compatible CSV BOM: every field quoted, inner quotes doubled, LF line ends.
 
-Layout of KiCad's built-in BOM export, "CSV" preset (format brief sec. 4), plus our fields;
+Layout of KiCad's built-in BOM export, "CSV" preset (KiCad schematic-editor manual, BOM),
+plus our fields;
 cells neutralised against formula injection (:func:`exporters.names.cell_text`).
 """
 

@@ -3,9 +3,10 @@
 * ``BOM``: the CSV's lines (:func:`exporters.bom.bom_lines`), bold frozen header, autofilter,
   widths from the content, ``Qty`` and costs stored as numbers, then a bold ``Total`` row
   (Qty summed; ``Extended cost`` the sum of the priced lines, empty when none is priced;
-  the description names the currency and the count of unpriced lines). Text cells are written with
-  ``data_type = "s"`` (openpyxl would store a leading ``=`` as a formula) after the OWASP
-  neutralisation of :func:`exporters.names.cell_text`.
+  the description names the currency and the count of unpriced lines). Text cells are
+  written with ``data_type = "s"`` (openpyxl would store a leading ``=`` as a formula), line
+  breaks and tabs removed; one that starts like a formula also gets the quote-prefix style
+  flag instead of the CSV's visible apostrophe (OWASP CSV-injection guidance).
 * ``Design``: the cautions line, target vs ideal vs as-built, the per-stage table, headroom,
   bias and warnings (from the design response when there is one; otherwise the as-built band
   of the circuit from the engine).
@@ -36,7 +37,7 @@ from openpyxl.utils import get_column_letter
 
 from exporters.board import Board
 from exporters.bom import COLUMNS, EXTENDED_COST_COLUMN, QTY_COLUMN, bom_lines, bom_total
-from exporters.names import cell_text
+from exporters.names import is_formula_lead, sheet_text
 from exporters.response import (
     BandEdges,
     analysis_range,
@@ -91,8 +92,13 @@ def _put(ws, row: int, col: int, value):
     elif isinstance(value, int | float):
         cell.value = value if math.isfinite(value) else None
     else:
-        cell.value = cell_text(value)
+        text = sheet_text(value)
+        cell.value = text
         cell.data_type = "s"
+        if is_formula_lead(text):
+            # Text cell with the quote-prefix flag: shown as typed (no visible apostrophe)
+            # and still taken as text if someone edits it (OWASP CSV-injection guidance).
+            cell.quotePrefix = True
     return cell
 
 
@@ -110,7 +116,7 @@ def _bom_sheet(ws, board: Board, library: PartsLibrary | None = None) -> None:
     ws.title = "BOM"
     for col, name in enumerate(COLUMNS, start=1):
         _put(ws, 1, col, name).font = _BOLD
-    rows = bom_lines(board, library)
+    rows = bom_lines(board, library, text=sheet_text)
     for r, row in enumerate(rows, start=2):
         for col, value in enumerate(row, start=1):
             _put(ws, r, col, value)

@@ -29,7 +29,8 @@ def comp_fields(part: Part, library: PartsLibrary | None = None,
 def libparts(board: Board) -> list[dict]:
     """One library part per (lib, part) used, with its pins (num, name, type).
 
-    kicad-netlist-reader needs a ``libpart`` for every ``libsource`` (format brief sec. 3).
+    kicad-netlist-reader needs a ``libpart`` for every ``libsource`` (its own source,
+    kicad_netlist_reader.py).
     """
     seen: dict[tuple[str, str], dict] = {}
     for part in board.parts:

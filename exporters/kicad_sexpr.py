@@ -1,6 +1,7 @@
 """KiCad S-expression netlist (``.net``, what the PCB editor imports).
 
-Layout and rules from the format brief (``eda-formats.md`` sec. 2): the first line holds
+Layout and rules from KiCad's file-format documentation (S-expression format and the
+netlist export of the schematic editor): the first line holds
 ``(export`` and a space, ``(version "E")`` first, every atom quoted through the one escaper
 :func:`exporters.names.sx`, deterministic uuid5 time stamps per placed unit, net codes from 1,
 no ``units``/``groups``/``variants`` items. No date unless one is given. The design identity

@@ -1,6 +1,7 @@
 """KiCad XML generic netlist (``.xml``, what BOM scripts read), built with ElementTree.
 
-Same tree as the ``.net`` (format brief sec. 3): ``export version="E"`` > ``design``,
+Same tree as the ``.net`` (KiCad's schematic-editor manual, generic XML netlist):
+``export version="E"`` > ``design``,
 ``components`` (value, footprint, datasheet ``~``, fields, libsource, sheetpath, tstamps),
 ``libparts`` (one per libsource, with pins), ``nets`` (code from 1, class ``Default``).
 ElementTree escapes ``& < > "``; characters XML 1.0 forbids are dropped first

@@ -4,15 +4,18 @@ A design name (up to 80 characters, any characters) and op-amp fields from a req
 approved-parts file are labels, never content. Each format gets one function:
 
 * :func:`safe_filename`: the download name; keeps ``[A-Za-z0-9._-]``, every other character
-  becomes ``-``, cut to 64 characters, ``gainchain-design`` when empty.
+  becomes ``-``, leading ``.`` and ``-`` dropped, cut to 64 characters, ``gainchain-design``
+  when empty.
 * :func:`cell_text`: CSV and xlsx cells. OWASP's CSV-injection guidance: a cell that starts
   with ``=``, ``+``, ``-``, ``@``, tab or carriage return may be run as a formula by a
   spreadsheet, so such cells get a leading apostrophe. Tabs and line breaks are removed first
   (KiCad's BOM export strips them too), so nothing hides behind them.
-* :func:`spice_title`: one line of ``[A-Za-z0-9 _.,:+=/-]`` (the format brief's set) that
+* :func:`spice_title`: one line of ``[A-Za-z0-9 _.,:+=/-]`` (a conservative set, common
+  practice) that
   starts with a letter or digit, so it cannot start a control line (``.``), a continuation
   (``+``) or an ngspice warning (``=``), nor carry a newline.
-* :func:`sx`: the one S-expression string escaper (KiCad's lexer rules, format brief sec. 2).
+* :func:`sx`: the one S-expression string escaper (KiCad's S-expression lexer rules, KiCad
+  file-format documentation).
 """
 
 from __future__ import annotations
@@ -25,17 +28,33 @@ _FORMULA_LEADS = ("=", "+", "-", "@", "\t", "\r")
 
 
 def safe_filename(name: str | None) -> str:
-    """``"Rx amp (v2)"`` -> ``"Rx-amp--v2-"``; empty -> ``gainchain-design``."""
-    kept = re.sub(r"[^A-Za-z0-9._-]", "-", name or "")[:MAX_FILENAME_CHARS]
+    """``"Rx amp (v2)"`` -> ``"Rx-amp--v2-"``; empty -> ``gainchain-design``.
+
+    Leading ``.`` and ``-`` are dropped: a name starting with a dot is a hidden file on Unix,
+    and one starting with a dash reads as an option to the command that gets it
+    (``rm -rf.csv``); common practice for downloaded file names.
+    """
+    kept = re.sub(r"[^A-Za-z0-9._-]", "-", name or "").lstrip(".-")[:MAX_FILENAME_CHARS]
     return kept or DEFAULT_NAME
 
 
 def cell_text(value: str | None) -> str:
-    """Spreadsheet-inert text: line breaks and tabs removed, formula leads quoted."""
-    text = re.sub(r"[\t\r\n]", "", xml_text(value))
-    if text.startswith(_FORMULA_LEADS):
+    """Spreadsheet-inert CSV text: line breaks and tabs removed, formula leads quoted."""
+    text = sheet_text(value)
+    if is_formula_lead(text):
         text = "'" + text
     return text
+
+
+def sheet_text(value: str | None) -> str:
+    """Cell text without line breaks and tabs (no quote added: an xlsx cell is marked as
+    text by its type and its quote-prefix style instead, so nothing shows)."""
+    return re.sub(r"[\t\r\n]", "", xml_text(value))
+
+
+def is_formula_lead(text: str) -> bool:
+    """True when a spreadsheet could take ``text`` for a formula (OWASP CSV injection)."""
+    return text.startswith(_FORMULA_LEADS)
 
 
 def spice_title(value: str | None, default: str = "gainchain design") -> str:

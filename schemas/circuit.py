@@ -6,7 +6,7 @@ from marshmallow import Schema, ValidationError, fields, post_load, validates_sc
 from marshmallow.validate import Length, OneOf, Range
 
 from schemas.fields import OutFloat, StrictBoolean, StrictFloat
-from schemas.opamp import OpAmpOutSchema, OpAmpSchema
+from schemas.opamp import OpAmpOutSchema, OpAmpSchema, swing_window_error
 from service.engine.model.circuit import (
     DUAL,
     SINGLE,
@@ -110,6 +110,11 @@ class CircuitSchema(Schema):
                     errors.setdefault("stages", {})[i] = {
                         "r_bias_ohm": ["may be null only when c_couple_f is null"]}
         if isinstance(supply, Supply):
+            opamp = data.get("opamp")
+            swing = opamp is not None and swing_window_error(
+                opamp.swing_to_pos_v, opamp.swing_to_neg_v, supply.span_v, "the supply span")
+            if swing:
+                errors["opamp"] = {"swing_to_pos_v": [swing]}
             if supply.kind == SINGLE and data.get("bias") is None:
                 errors["bias"] = ["a single supply needs the bias network"]
             if supply.kind == DUAL and data.get("bias") is not None:

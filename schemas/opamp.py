@@ -12,6 +12,20 @@ POSITIVE = Range(min=0, min_inclusive=False)
 NON_NEGATIVE = Range(min=0)
 
 
+def swing_window_error(swing_to_pos_v: float, swing_to_neg_v: float, span_v: float,
+                       what: str) -> str | None:
+    """Why the output swing window is empty or inverted on ``span_v`` volts, else None.
+
+    The output reaches from ``V- + swing_to_neg_v`` to ``V+ - swing_to_pos_v``, a window of
+    ``span - swing_to_pos_v - swing_to_neg_v`` volts (common practice: datasheet output
+    swing figures); zero or less leaves no output range at all.
+    """
+    if swing_to_pos_v + swing_to_neg_v >= span_v:
+        return (f"swing_to_pos_v + swing_to_neg_v = {swing_to_pos_v + swing_to_neg_v:g} V "
+                f"leaves no output swing on {what} of {span_v:g} V (the window is inverted)")
+    return None
+
+
 class OpAmpSchema(Schema):
     """Required: gbw_hz, slew_v_per_us, swing_to_pos_v, swing_to_neg_v, supply_min_v,
     supply_max_v. Optional fields take the defaults documented on ``OpAmp``."""
@@ -45,6 +59,12 @@ class OpAmpSchema(Schema):
     def _supply_range(self, data, **kwargs):
         if data.get("supply_min_v", 0) > data.get("supply_max_v", float("inf")):
             raise ValidationError("supply_min_v must not exceed supply_max_v", "supply_min_v")
+        message = swing_window_error(data.get("swing_to_pos_v", 0.0),
+                                     data.get("swing_to_neg_v", 0.0),
+                                     data.get("supply_max_v", float("inf")),
+                                     "its largest supply span (supply_max_v)")
+        if message:
+            raise ValidationError(message, "swing_to_pos_v")
 
     @post_load
     def _make(self, data, **kwargs) -> OpAmp:

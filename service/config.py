@@ -74,6 +74,11 @@ def from_environment(env=None) -> dict:
         "GAINCHAIN_CORS_ORIGINS": _csv(env, "GAINCHAIN_CORS_ORIGINS"),
         # Wall-clock compute budget per request, in seconds (checked by the engine callers).
         "GAINCHAIN_COMPUTE_BUDGET_S": _float(env, "GAINCHAIN_COMPUTE_BUDGET_S", 10.0),
+        # Estimated cost and reply size a request may have (service.ops.cost), else 422.
+        "GAINCHAIN_MAX_COST_UNITS": _int(env, "GAINCHAIN_MAX_COST_UNITS", 300_000,
+                                         minimum=1),
+        "GAINCHAIN_MAX_REPLY_BYTES": _int(env, "GAINCHAIN_MAX_REPLY_BYTES", 8 * 1024 * 1024,
+                                          minimum=1024),
         "GAINCHAIN_LOG_LEVEL": _choice(env, "GAINCHAIN_LOG_LEVEL", "INFO", LOG_LEVELS),
         # Set by the process manager (gunicorn.conf.py does it for you); when set, /metrics
         # aggregates the counters of every worker process.
@@ -98,6 +103,11 @@ def server_settings(env=None, *, cpu_count: int | None = None) -> dict:
         "host": (env.get("HOST") or "127.0.0.1").strip(),
         "port": _int(env, "PORT", 8000, minimum=1),
         "workers": _int(env, "GAINCHAIN_WORKERS", max(2, cpus), minimum=1),
+        # Threads per worker (gthread): a probe or a cheap request finds a free thread while
+        # long computations run in others (README, "Concurrency").
+        "threads": _int(env, "GAINCHAIN_THREADS", 4, minimum=1),
+        # Where gunicorn listens; the front (docker/front.py) sets a Unix socket here.
+        "bind": (env.get("GAINCHAIN_BIND") or "").strip() or None,
         "timeout_s": _int(env, "GAINCHAIN_WORKER_TIMEOUT_S", 30, minimum=1),
         "log_level": _choice(env, "GAINCHAIN_LOG_LEVEL", "INFO", LOG_LEVELS),
     }

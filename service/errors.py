@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import json
 import logging
+import re
 
 from flask import Flask, Response, request
 from marshmallow import ValidationError
@@ -104,23 +105,109 @@ def _nest(path: str, messages: list[str]) -> dict:
     return node
 
 
+#: Deepest nesting of arrays/objects a body may have. The deepest valid request (a circuit
+#: inside an analysis: body > circuit > stages > stage > value) is 5 levels; 32 leaves room
+#: for future fields while keeping every recursive walk (marshmallow, json) far from
+#: Python's recursion limit (OWASP API4: bounded resource use per request).
+MAX_JSON_DEPTH = 32
+_SURROGATE_RE = re.compile("[\ud800-\udfff]")
+# A JSON string (skipped whole) or one bracket.
+_TOKEN_RE = re.compile(r'"[^"\\]*(?:\\.[^"\\]*)*"|[\[\]{}]')
+# Only a \uD800-\uDFFF escape can put a surrogate into a text decoded from UTF-8.
+_SURROGATE_ESCAPE_RE = re.compile(r"\\u[dD][89a-fA-F]")
+
+
 def get_json_body() -> object:
     """Parse the request body as JSON, strictly.
 
-    :raise ApiProblem 415: the Content-Type is not ``application/json`` (or ``+json``).
-    :raise ApiProblem 400: the body is not valid JSON (NaN/Infinity literals included).
+    :raise ApiProblem 415: the Content-Type is not ``application/json`` (or ``+json``), or
+        names a charset other than UTF-8 (RFC 8259 section 8.1: JSON exchanged between
+        systems is UTF-8).
+    :raise ApiProblem 400: the body is not valid JSON (NaN/Infinity literals included), an
+        object repeats a key, a string holds a lone surrogate (not a Unicode scalar value,
+        RFC 8259 section 8.2), or arrays/objects nest deeper than :data:`MAX_JSON_DEPTH`.
     """
     mimetype = request.mimetype or ""
     if not (mimetype == "application/json" or mimetype.endswith("+json")):
         got = mimetype or "no Content-Type"
         raise ApiProblem(415, "Unsupported media type",
                          f"Send the body as application/json (got {got}).")
+    charset = request.mimetype_params.get("charset")
+    if charset is not None and charset.strip().lower().replace("_", "-") not in ("utf-8",
+                                                                              "utf8"):
+        raise ApiProblem(415, "Unsupported media type",
+                         f"The body must be UTF-8 JSON (Content-Type names charset "
+                         f"{ascii(charset)}).")
     raw = request.get_data(cache=True)
     try:
         text = raw.decode("utf-8")
-        return json.loads(text, parse_constant=_reject_constant)
-    except (UnicodeDecodeError, ValueError) as exc:
+    except UnicodeDecodeError as exc:
         raise ApiProblem(400, "Malformed JSON", f"The body is not valid JSON: {exc}.") from None
+    depth = _nesting_depth(text)
+    if depth > MAX_JSON_DEPTH:
+        raise ApiProblem(400, "Malformed JSON",
+                         f"The body nests arrays/objects {depth} deep; at most "
+                         f"{MAX_JSON_DEPTH} levels are accepted.", type_="json-too-deep")
+    try:
+        value = json.loads(text, parse_constant=_reject_constant,
+                           object_pairs_hook=_unique_keys)
+    except (ValueError, RecursionError) as exc:
+        detail = ascii(str(exc))[1:-1]
+        raise ApiProblem(400, "Malformed JSON", f"The body is not valid JSON: {detail}.") \
+            from None
+    bad = _first_surrogate_path(value) if _SURROGATE_ESCAPE_RE.search(text) else None
+    if bad is not None:
+        raise ApiProblem(400, "Malformed JSON",
+                         f"The body holds a lone UTF-16 surrogate escape (at {bad}); JSON "
+                         "text must be Unicode scalar values.", type_="malformed-json")
+    return value
+
+
+def _nesting_depth(text: str) -> int:
+    """Deepest bracket nesting of a JSON text, brackets inside strings ignored. No recursion:
+    it runs before the parser so that a hostile depth never reaches it; strings are skipped
+    by one regular expression, so the Python loop only sees the brackets."""
+    depth = deepest = 0
+    for match in _TOKEN_RE.finditer(text):
+        ch = match.group()
+        if ch in "[{":
+            depth += 1
+            if depth > deepest:
+                deepest = depth
+                if deepest > MAX_JSON_DEPTH:
+                    break
+        elif ch in "]}":
+            depth -= 1
+    return deepest
+
+
+def _unique_keys(pairs):
+    """``object_pairs_hook`` that refuses a repeated key (RFC 8259 section 4: names SHOULD
+    be unique; a silent last-wins would let two readers see two different requests)."""
+    out = {}
+    for key, value in pairs:
+        if key in out:
+            raise ValueError(f"duplicate key {key!r} in an object")
+        out[key] = value
+    return out
+
+
+def _first_surrogate_path(value, path: str = "body") -> str | None:
+    """Path of the first string (key or value) holding a surrogate code point, else None."""
+    stack = [(value, path)]
+    while stack:
+        node, where = stack.pop()
+        if isinstance(node, str):
+            if _SURROGATE_RE.search(node):
+                return where
+        elif isinstance(node, dict):
+            for key, item in node.items():
+                if _SURROGATE_RE.search(key):
+                    return f"a key of {where}"
+                stack.append((item, f"{where}.{key}"))
+        elif isinstance(node, list):
+            stack.extend((item, f"{where}[{i}]") for i, item in enumerate(node))
+    return None
 
 
 def _reject_constant(name: str):

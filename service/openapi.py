@@ -50,19 +50,32 @@ ANY_OBJECT = {"type": "object", "additionalProperties": True}
 
 # Titles of the statuses we document (RFC 9110 names; 413 "Content Too Large").
 _STATUS_TEXT = {
-    400: "Malformed JSON body.",
-    401: "Missing or invalid API key (only when API keys are configured).",
+    400: "Malformed request: a JSON body that cannot be read (syntax, duplicate keys, lone "
+         "surrogates, nesting deeper than 32), or a request line or header the front or the "
+         "server cannot read.",
+    401: "Missing or invalid API key (answered when API keys are configured; documented "
+         "whatever the configuration).",
     404: "No such resource.",
     405: "Method not allowed; the Allow header lists the allowed ones.",
     413: "Request body larger than GAINCHAIN_MAX_BODY_BYTES.",
-    415: "Body is not application/json.",
-    422: "Validation failed; 'errors' maps each field to its messages.",
+    414: "Request line longer than 4 KiB (answered by the front, or by the server).",
+    415: "Body is not application/json in UTF-8.",
+    422: "Validation failed, or the request is too expensive or its reply too large; "
+         "'errors' maps each field to its messages.",
+    429: "Too many requests from this client, or too many in flight (answered by the front; "
+         "Retry-After says when to retry).",
+    431: "A header line longer than 4 KiB or headers over 16 KiB (answered by the front, or "
+         "by the server).",
     500: "Unexpected failure (logged; no details are returned).",
     503: "Not ready, or the request exceeded its compute budget.",
 }
 
-# Statuses every operation may answer with, and those of operations that take a JSON body.
-COMMON_ERRORS = (500,)
+# Statuses every operation may answer with (the front's and the server's own refusals of a
+# request they cannot read included: problem+json like the app's), those of every /v1
+# operation whatever the configuration (API keys, the front's per-client limits), and those
+# of operations that take a JSON body.
+COMMON_ERRORS = (400, 414, 431, 500)
+API_ERRORS = (401, 429)
 BODY_ERRORS = (400, 413, 415, 422)
 COMPUTE_ERRORS = BODY_ERRORS + (503,)
 
@@ -276,8 +289,12 @@ Stateless JSON service that designs cascades of capacitively coupled op-amp gain
 
 Errors are RFC 9457 problem details (application/problem+json). Limits: request body at most
 GAINCHAIN_MAX_BODY_BYTES (default 262144 bytes, 413); at most 12 stages, 2000 response points,
-100000 Monte Carlo trials and 100 batch items (422); a compute budget per request
-(GAINCHAIN_COMPUTE_BUDGET_S, default 10 s, 503). A design aid: prototype and measure.
+100000 Monte Carlo trials and 100 batch items (422); an estimated cost per request
+(GAINCHAIN_MAX_COST_UNITS, about two seconds of one core) and reply size
+(GAINCHAIN_MAX_REPLY_BYTES, default 8 MiB), both 422 naming the field; a compute budget per
+request (GAINCHAIN_COMPUTE_BUDGET_S, default 10 s, 503). In production a front (nginx)
+refuses unreadable requests (400, 414, 431) and too many requests per client (429 with
+Retry-After), as problem details too. A design aid: prototype and measure.
 """
 
 
@@ -404,7 +421,6 @@ class ProblemDocSchema(Schema):
 
 def build_spec(app) -> dict:
     """Build the OpenAPI document for the routes ``app`` serves (see :data:`OPERATIONS`)."""
-    auth_enabled = bool(app.extensions.get("gainchain_ops", {}).get("auth_enabled"))
     plugin = MarshmallowPlugin()
     spec = APISpec(
         title="gainchain",
@@ -445,9 +461,11 @@ def build_spec(app) -> dict:
                             for mt, ref in media.items()},
             }
         errors = set(op.errors) | set(COMMON_ERRORS)
-        if auth_enabled and not op.public:
-            errors.add(401)
-            operation["security"] = [{"bearerAuth": []}]
+        if not op.public:
+            # The same description whatever the configuration: a key is asked for only
+            # when keys are configured, so the bearer requirement is one of two options.
+            errors.update(API_ERRORS)
+            operation["security"] = [{"bearerAuth": []}, {}]
         for status in sorted(errors):
             responses[str(status)] = _problem_response(status)
         operation["responses"] = responses

@@ -13,6 +13,7 @@ from dataclasses import replace
 
 from marshmallow import ValidationError
 
+from schemas.opamp import swing_window_error
 from schemas.request import AnalysisRequestSchema, DesignRequestSchema, limits_of
 from service.engine import report
 from service.engine.judge import extras
@@ -83,6 +84,11 @@ def load_design_request(body, catalog=None, library=False) -> tuple[DesignReques
             raise ValidationError({"opamp": [f"Unknown catalog id {opamp!r}; GET /v1/opamps "
                                              "lists the catalog."]})
         opamp = found
+    swing = swing_window_error(opamp.swing_to_pos_v, opamp.swing_to_neg_v,
+                               data["supply"][0].span_v, "the requested supply span")
+    if swing:
+        where = [swing] if isinstance(data["opamp"], str) else {"swing_to_pos_v": [swing]}
+        raise ValidationError({"opamp": where})
     req = DesignRequest(target=data["target"], supply=data["supply"][0], opamp=opamp,
                         signal=data["signal"][0], topology=data["topology"],
                         stages=data["stages"], components=components,
@@ -146,9 +152,24 @@ def run_design(body, catalog=None) -> dict:
     return out
 
 
+def _charge(n_stages: int, options: dict, what: str) -> None:
+    """Count this design's (or analysis') cost and reply size before its analyses run
+    (:mod:`service.ops.cost`; 422 naming the costliest option when it is too much)."""
+    from service.ops import cost
+
+    trials = int((options.get("tolerance") or {}).get("trials") or 0)
+    points = int((options.get("response") or {}).get("points") or 0)
+    cost.charge(cost.design_units(n_stages, trials=trials, points=points),
+                reply=cost.design_reply_bytes(n_stages, points=points),
+                field=cost.costliest_field(n_stages, trials=trials, points=points),
+                what=f"{what} with {n_stages} stages, {trials} Monte Carlo trials and "
+                     f"{points} response points")
+
+
 def _design_body(result: design_mod.Design, options: dict) -> dict:
-    out = report.design_block(result)
     circuit = result.synthesis.circuit
+    _charge(circuit.n_stages, options, "This design")
+    out = report.design_block(result)
     out.update(extras.extra_blocks(
         circuit, target=result.request.target, input_peak_v=result.request.signal.input_peak_v,
         as_built=out["performance"]["as_built"], options=options, check_deadline=_deadline()))
@@ -200,11 +221,12 @@ def run_analysis(body) -> dict:
     data = _ANALYSIS_SCHEMA.load(body)
     circuit: Circuit = data["circuit"]
     target = data.get("target")
+    options = _options(data)
+    _charge(circuit.n_stages, options, "This analysis")
     out = {"name": data.get("name"), "design_id": design_id(circuit)}
     out.update(report.analysis_block(circuit, target=target, input_peak_v=data["input_peak_v"],
                                      limits=data["limits"],
                                      supply_rejection_hz=data.get("supply_rejection_hz")))
-    options = _options(data)
     out.update(extras.extra_blocks(circuit, target=target, input_peak_v=data["input_peak_v"],
                                    as_built=out["performance"]["as_built"], options=options,
                                    check_deadline=_deadline()))

@@ -15,4 +15,4 @@ def create_analysis():
 
     :raise 400: malformed JSON. :raise 415: not JSON. :raise 422: invalid circuit.
     """
-    return json_response(run_analysis(get_json_body()))
+    return json_response(run_analysis(get_json_body()), field="response.points")

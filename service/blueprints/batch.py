@@ -17,7 +17,7 @@ from service.errors import (
     problem_body,
     validation_problem,
 )
-from service.ops import budget
+from service.ops import budget, cost
 from service.pipeline import run_design
 from service.views import json_response
 
@@ -57,6 +57,26 @@ def design_one(item) -> dict:
     return {"status": problem["status"], "problem": problem}
 
 
+def _charge_batch(items: list) -> None:
+    """Refuse a batch whose items add up to more than one request may cost or send back,
+    before any item is designed (each is then charged again as it runs)."""
+    units = reply = 0
+    for item in items:
+        item_units, item_reply = cost.estimate_item(item)
+        units += item_units
+        reply += item_reply
+    limit = cost.max_reply_bytes()
+    if limit is not None and reply > limit:
+        raise cost.reply_too_large("requests", reply, limit, estimated=True)
+    meter_units = cost.max_units()
+    if meter_units is not None and units > meter_units:
+        raise cost.too_expensive(
+            "requests", f"These {len(items)} requests would cost about {units:,} units ('auto' "
+                        f"stages counted as {cost.AUTO_STAGES_BOUND}); a request may use "
+                        f"{meter_units:,} (GAINCHAIN_MAX_COST_UNITS). Send fewer items, "
+                        "trials or points, or fix the stage counts.")
+
+
 @bp.post("/designs/batch")
 def create_designs():
     """Design up to 100 cascades; results in request order.
@@ -65,8 +85,9 @@ def create_designs():
         ``{"requests": [...]}`` or holds more than 100 items.
     """
     items = _requests_of(get_json_body())
+    _charge_batch(items)
     results = []
     for i, item in enumerate(items):
         budget.check(f"batch item {i}")
         results.append(design_one(item))
-    return json_response({"results": results})
+    return json_response({"results": results}, field="requests")

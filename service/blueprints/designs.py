@@ -16,4 +16,4 @@ def create_design():
     :raise 400: malformed JSON. :raise 415: not JSON. :raise 422: invalid request, or a
         strict design that misses its target (with ``best_design``).
     """
-    return json_response(run_design(get_json_body()))
+    return json_response(run_design(get_json_body()), field="response.points")

@@ -29,11 +29,13 @@ from exporters.board import SIZES
 from exporters.formats import KINDS, export
 from service.engine.model.circuit import Circuit
 from service.errors import ApiProblem, get_json_body
+from service.ops import budget
 from service.parts_library import current_library
 
 bp = Blueprint("exports", __name__)
 
 MAX_NAME_CHARS = 80
+MIN_DATE = dt.date(1900, 1, 1)
 _CIRCUIT_BODY_KEYS = ("name", "circuit")
 
 
@@ -52,8 +54,10 @@ def create_export(kind: str):
         circuit, name, report, tolerances = _from_circuit_body(body)
     else:
         circuit, name, report, tolerances = _from_design_request(body)
+    budget.check("before writing the file")
     file = export(kind, circuit, name=name, report=report, size=size, date=date,
                   library=current_library(), **tolerances)
+    budget.check("writing the file")  # a file finished past the budget is not sent
     resp = Response(file.data, mimetype=None, content_type=file.mimetype)
     resp.headers["Content-Disposition"] = f'attachment; filename="{file.filename}"'
     return resp
@@ -74,6 +78,12 @@ def _options() -> tuple[str, dt.date | None]:
             date = dt.date.fromisoformat(raw_date)
         except ValueError:
             errors["date"] = ["Not a valid ISO date (YYYY-MM-DD)."]
+        else:
+            if date < MIN_DATE:
+                # Spreadsheet date serials start at 1900-01-01 (ECMA-376 Part 1, 18.17.4):
+                # an xlsx cannot hold an earlier date.
+                errors["date"] = [f"From {MIN_DATE.isoformat()} on (spreadsheets cannot "
+                                  "hold earlier dates)."]
     if errors:
         raise ValidationError({"query": errors})
     return size, date

@@ -24,5 +24,5 @@ def get_opamp(opamp_id: str):
     """
     found = current_catalog().get(opamp_id)
     if found is None:
-        raise ApiProblem(404, "Not found", f"No op-amp {opamp_id!r} in the catalog.")
+        raise ApiProblem(404, "Not Found", f"No op-amp {opamp_id!r} in the catalog.")
     return json_response(found.to_dict())

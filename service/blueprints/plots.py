@@ -15,11 +15,14 @@ from __future__ import annotations
 
 import io
 import math
+import re
+import threading
 
 from flask import Blueprint, Response, request
 from marshmallow import ValidationError
 
 from service.errors import get_json_body
+from service.ops import budget, cost
 from service.pipeline import run_analysis, run_design
 
 bp = Blueprint("plots", __name__, url_prefix="/v1/plots")
@@ -30,20 +33,30 @@ DPI = 100
 CURVE_POINTS = 400
 
 
-def _size(defaults=(DEFAULT_WIDTH_PX, DEFAULT_HEIGHT_PX)) -> tuple:
-    errors = {}
+QUERY_PARAMETERS = ("width_px", "height_px")
+_ASCII_INT_RE = re.compile(r"[0-9]{1,5}")
+
+
+def _size(defaults=(DEFAULT_WIDTH_PX, DEFAULT_HEIGHT_PX)) -> tuple[int, int]:
+    """The image size from the query; unknown parameters are refused (as on exports).
+
+    Digits are ASCII only: ``str.isdigit`` also accepts superscripts such as "²", which
+    ``int()`` then refuses.
+    """
+    errors = {key: [f"Unknown query parameter; allowed: {', '.join(QUERY_PARAMETERS)}."]
+              for key in request.args if key not in QUERY_PARAMETERS}
     sizes = []
     for name, default in zip(("width_px", "height_px"), defaults, strict=True):
         raw = request.args.get(name)
         if raw is None:
             sizes.append(default)
             continue
-        if not raw.isdigit() or not MIN_PX <= int(raw) <= MAX_PX:
-            errors[name] = [f"An integer from {MIN_PX} to {MAX_PX} (got {raw!r})."]
+        if not _ASCII_INT_RE.fullmatch(raw) or not MIN_PX <= int(raw) <= MAX_PX:
+            errors[name] = [f"An integer from {MIN_PX} to {MAX_PX} (got {ascii(raw[:20])})."]
             continue
         sizes.append(int(raw))
     if errors:
-        raise ValidationError(errors)
+        raise ValidationError({"query": errors})
     return sizes[0], sizes[1]
 
 
@@ -69,9 +82,20 @@ def _target_gain_db(target: dict) -> float | None:
     return None
 
 
+#: matplotlib's rcParams (set by rc_context below) are process-wide: one drawing at a time
+#: per worker process, so threads (gthread workers) never see each other's settings.
+_RENDER_LOCK = threading.Lock()
+
+
 def render(result: dict, target: dict | None, *, fmt: str, width_px: int,
            height_px: int) -> bytes:
     """Draw the Bode plot of a design/analysis result; ``fmt`` is "svg" or "png"."""
+    with _RENDER_LOCK:
+        return _render(result, target, fmt=fmt, width_px=width_px, height_px=height_px)
+
+
+def _render(result: dict, target: dict | None, *, fmt: str, width_px: int,
+            height_px: int) -> bytes:
     import matplotlib
 
     matplotlib.use("Agg", force=False)
@@ -126,8 +150,13 @@ def _num(values):
 
 def _plot(fmt: str, mimetype: str) -> Response:
     width_px, height_px = _size()
-    result, target = _result_and_target(get_json_body())
+    body = get_json_body()
+    cost.charge(cost.plot_units(width_px, height_px), field="query.width_px",
+                what=f"A {width_px} x {height_px} px plot")
+    result, target = _result_and_target(body)
+    budget.check("before drawing the plot")
     data = render(result, target, fmt=fmt, width_px=width_px, height_px=height_px)
+    budget.check("drawing the plot")  # a plot finished past the budget is not sent
     return Response(data, status=200, mimetype=mimetype)
 
 

@@ -64,13 +64,14 @@ def _warn(code: str, message: str) -> dict:
 
 
 def analysis_block(circuit: Circuit, *, target: Target | None, input_peak_v: float,
-                   limits: Limits, supply_rejection_hz: float | None = None,
+                   limits: Limits | None = None, supply_rejection_hz: float | None = None,
                    bias_reason: str | None = None, ab: analysis.AsBuilt | None = None,
                    judgement: verdict.Judgement | None = None) -> dict:
     """as_built, headroom, checks, limits, bias, warnings (and status/shortfalls given a
     target). ``judgement`` is the synthesis' own verdict when there is one; an analysis
     judges the circuit here, by the same function."""
     ab = ab or analysis.as_built(circuit)
+    limits = limits or Limits()
     judgement = judgement or verdict.judge(circuit, ab, target=target, input_peak_v=input_peak_v,
                                            limits=limits,
                                            supply_rejection_hz=supply_rejection_hz)
@@ -116,6 +117,10 @@ def _shortfall_text(s: dict) -> str:
     return f"{s['quantity']}{where} {achieved} vs {limit}"
 
 
+#: ``tradeoff.required_gbw_hz`` looks at stage counts up to the design's own plus this many.
+REQUIRED_GBW_EXTRA_STAGES = 2
+
+
 def tradeoff_block(design: Design) -> dict:
     """Ideal figures for n = 1..12 and the stage count that maximises ideal bandwidth."""
     req = design.request
@@ -140,8 +145,12 @@ def tradeoff_block(design: Design) -> dict:
         })
     stable_rows = [r for r in rows if r["stable"]] or rows
     best = max(stable_rows, key=lambda r: (r["f_high_hz"], -r["stages"]))
-    need_gbw, need_n = ideal.required_gbw_hz(t.gain, t.f_high_hz, req.topology)
-    reachable = any(r["meets_target"] for r in rows)
+    # Quoted for the stage counts someone would build instead: at most two more than the
+    # design has (a 27-stage figure helps nobody), with that n stated.
+    most = min(ideal.MAX_STAGES, design.synthesis.circuit.n_stages + REQUIRED_GBW_EXTRA_STAGES)
+    need_gbw, need_n = ideal.required_gbw_hz(t.gain, t.f_high_hz, req.topology,
+                                             max_stages=most)
+    reachable = any(r["meets_target"] for r in rows if r["stages"] <= most)
     return {
         "rows": rows,
         "optimal_stages": ideal.optimal_stage_count(t.gain, req.topology),

@@ -3,7 +3,8 @@
 ``init_app(app)`` installs, in this order of execution for each request:
 
 1. request id (``X-Request-ID`` kept or generated) and the latency clock;
-2. the compute budget's deadline (:mod:`service.ops.budget`);
+2. the compute budget's deadline (:mod:`service.ops.budget`) and the cost meter
+   (:mod:`service.ops.cost`);
 3. CORS preflight answers for allowed origins (:mod:`service.ops.cors`);
 4. API-key authentication (:mod:`service.ops.auth`), before any view reads the body;
 5. the body-size limit: a declared ``Content-Length`` above ``GAINCHAIN_MAX_BODY_BYTES`` is
@@ -25,7 +26,7 @@ import time
 
 from flask import Flask, g, request
 
-from service.ops import auth, budget, cors, logs, metrics
+from service.ops import auth, budget, cors, cost, logs, metrics
 
 SECURITY_HEADERS = {
     "X-Content-Type-Options": "nosniff",
@@ -43,8 +44,13 @@ def init_app(app: Flask) -> None:
     key_digests = auth.load_keys(app.config)
     allowed_origins = frozenset(app.config.get("GAINCHAIN_CORS_ORIGINS") or ())
     budget_s = float(app.config.get("GAINCHAIN_COMPUTE_BUDGET_S") or 10.0)
+    max_cost_units = int(app.config.get("GAINCHAIN_MAX_COST_UNITS")
+                         or cost.DEFAULT_MAX_COST_UNITS)
+    max_reply_bytes = int(app.config.get("GAINCHAIN_MAX_REPLY_BYTES")
+                          or cost.DEFAULT_MAX_REPLY_BYTES)
     max_body = app.config.get("MAX_CONTENT_LENGTH")
     logger = logs.configure(app.config.get("GAINCHAIN_LOG_LEVEL") or "INFO")
+    logs.route_flask_logger(app)
     app.extensions["gainchain_ops"] = {
         "auth_enabled": bool(key_digests),
         "cors_origins": allowed_origins,
@@ -56,11 +62,14 @@ def init_app(app: Flask) -> None:
         g.request_started = time.perf_counter()
         g.request_id = logs.request_id_from(request.headers.get("X-Request-ID"))
         budget.start(budget_s)
-        if cors.is_preflight(request):  # exempt from auth: browsers send no credentials
+        cost.start(max_cost_units, max_reply_bytes)
+        if cors.is_preflight(request):
+            # Exempt from auth only for an allowed origin (browsers send preflights without
+            # credentials). Any other OPTIONS, CORS on or off, needs a key like every
+            # request, so it cannot be used to list routes.
             origin = cors.allowed_origin(request, allowed_origins)
             if origin:
                 return cors.preflight_response(origin)
-            return None  # not ours: Flask's default OPTIONS answer, without CORS headers
         auth.check_request(request, key_digests)
         _check_declared_length(max_body)
         _buffer_unsized_body(max_body)

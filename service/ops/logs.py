@@ -86,6 +86,20 @@ def configure(level: str) -> logging.Logger:
     return logger
 
 
+def route_flask_logger(app) -> None:
+    """Flask's own records (``app.logger``: exceptions Flask logs itself) go to stderr as
+    JSON lines too, not through the root logger (gunicorn points that at stdout)."""
+    from flask.logging import default_handler
+
+    flask_logger = app.logger
+    flask_logger.removeHandler(default_handler)
+    if not any(isinstance(h, StderrHandler) for h in flask_logger.handlers):
+        handler = StderrHandler()
+        handler.setFormatter(JsonFormatter())
+        flask_logger.addHandler(handler)
+    flask_logger.propagate = False
+
+
 def log_request(logger: logging.Logger, *, method: str, path: str, endpoint: str,
                 status: int, duration_s: float, request_id: str) -> None:
     logger.info("request", extra={

@@ -70,8 +70,23 @@ def multiprocess_dir() -> str | None:
     return _MULTIPROC_DIR
 
 
+#: Methods counted under their own name (RFC 9110 section 9 and RFC 5789's PATCH); any
+#: other method string a client sends is counted as ``OTHER``, so a client cannot grow the
+#: number of series (OWASP API4).
+KNOWN_METHODS = frozenset({"GET", "HEAD", "POST", "PUT", "DELETE", "CONNECT", "OPTIONS",
+                           "TRACE", "PATCH"})
+OTHER_METHOD = "OTHER"
+
+
+def method_label(method: str) -> str:
+    return method if method in KNOWN_METHODS else OTHER_METHOD
+
+
 def observe_request(endpoint: str, method: str, status: int, seconds: float) -> None:
-    labels = (endpoint, method, str(status))
+    """Count one answered request. ``endpoint`` must be a route template from the URL map
+    (or the one "unmatched" value), never a raw path; methods are folded by
+    :func:`method_label`."""
+    labels = (endpoint, method_label(method), str(int(status)))
     REQUESTS.labels(*labels).inc()
     LATENCY.labels(*labels).observe(max(seconds, 0.0))
 

@@ -51,8 +51,32 @@ def test_one_stage_matches_scipy_freqs():
     f = np.array(block["frequency_hz"])
     _, h = signal.freqs(num, den, worN=2 * np.pi * f)
     np.testing.assert_allclose(block["gain_db"], 20 * np.log10(np.abs(h)), atol=1e-9)
-    np.testing.assert_allclose(block["phase_deg"], np.degrees(np.unwrap(np.angle(h))),
-                               atol=1e-7)
+    # Phase: numpy.unwrap of the reference, anchored where the gain peaks at numpy.angle's
+    # own value there (which lies in (-180, 180]).
+    ref = np.degrees(np.unwrap(np.angle(h)))
+    peak = int(np.argmax(np.abs(h)))
+    ref += np.degrees(np.angle(h[peak])) - ref[peak]
+    np.testing.assert_allclose(block["phase_deg"], ref, atol=1e-7)
+
+
+@pytest.mark.parametrize("make, n, midband_deg", [(noninv_dual, 4, 0.0), (inv_dual, 3, 180.0),
+                                                  (inv_dual, 2, 0.0)])
+def test_midband_phase_is_wrapped_at_the_gain_peak(make, n, midband_deg):
+    # Issue 10: a cascade reported -360 / -719 degrees in its passband. At the gain peak
+    # the phase is in (-180, 180]: about 0 for a non-inverting chain or an even number of
+    # inverting stages, 180 for an odd number (an inverting stage is -Rf/Rin: common
+    # practice); every stage curve is anchored the same way.
+    circuit = make(n=n)
+    block = response.response_block(circuit, as_built={"f_low_hz": 5.0, "f_high_hz": 2e5},
+                                    points=400, f_start_hz=0.01, f_stop_hz=1e9)
+    for curve in [block] + block["stages"]:
+        gain = np.array(curve["gain_db"])
+        phase = np.array(curve["phase_deg"])
+        peak_phase = phase[int(np.argmax(gain))]
+        assert -180.0 < peak_phase <= 180.0
+        assert np.max(np.abs(np.diff(phase))) < 90  # still continuous
+    peak_phase = np.array(block["phase_deg"])[int(np.argmax(block["gain_db"]))]
+    assert abs((peak_phase - midband_deg + 180) % 360 - 180) < 10
 
 
 def test_phase_is_unwrapped_and_stages_are_cumulative():

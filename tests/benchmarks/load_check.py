@@ -251,7 +251,7 @@ def main(argv=None) -> int:
     ratio = by_name["design-readme"]["req_per_s"] / by_name["healthz"]["req_per_s"]
     total = sum(r["requests"] for r in results)
     unexpected = sum(r["unexpected"] for r in results)
-    print(f"gunicorn: {args.workers} sync workers, {args.connections} connections, "
+    print(f"gunicorn: {args.workers} gthread workers, {args.connections} connections, "
           f"{args.seconds:g} s per phase, {total} requests measured, loopback {HOST}:{port}")
     print(f"{'phase':<15}{'requests':>9}{'req/s':>9}{'p50 ms':>9}{'p99 ms':>9}"
           f"{'unexpected':>12}  statuses")

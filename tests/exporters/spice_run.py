@@ -1,9 +1,9 @@
 """Run a SPICE deck in ngspice (batch mode) and read its ``.print ac`` table.
 
 Used by the tests and by ``report_ngspice.py``. ngspice runs in a fresh temporary folder with
-an argument list (no shell) and a timeout (format brief sec. 5). Exit status 0 proves little,
+an argument list (no shell) and a timeout (common practice). Exit status 0 proves little,
 so the caller checks the row count, and any "error" or "warning" in the output fails
-here (a missing value only warns, format brief sec. 5).
+here (a missing value only warns: ngspice behaviour, from memory).
 """
 
 from __future__ import annotations
@@ -33,7 +33,8 @@ def run_deck(deck: str, timeout_s: float = 120.0) -> tuple[str, str]:
 
 
 def parse_print_table(stdout: str, columns: int = 3) -> np.ndarray:
-    """Rows of the ``.print`` table: lines that start with an integer index (brief sec. 5)."""
+    """Rows of the ``.print`` table: lines that start with an integer index (ngspice
+    manual, .print)."""
     rows = {}
     for line in stdout.splitlines():
         parts = line.split()

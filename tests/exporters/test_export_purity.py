@@ -3,8 +3,10 @@
 from __future__ import annotations
 
 import os
+import re
 import subprocess
 import sys
+from pathlib import Path
 
 import ngspice_support
 import pytest
@@ -30,3 +32,18 @@ def test_missing_ngspice_skips_locally_but_fails_under_ci(monkeypatch):
     monkeypatch.setenv("CI", "true")
     with pytest.raises(pytest.fail.Exception):
         ngspice_support.require_ngspice()
+
+
+def test_sources_cite_published_references_only():
+    """Issue 10: comments and docstrings cite the published sources (KiCad's file-format
+    documentation, the ngspice manual, OWASP, IEC 60063, "common practice"), never an
+    internal brief that is not part of this repository."""
+    banned = re.compile("format" + r"\s+" + "brief|" + "eda-" + "formats", re.I)
+    cited = []
+    root = Path(ROOT)
+    for folder in ("exporters", "service", "schemas", "tests", "docker"):
+        for path in (root / folder).rglob("*.py"):
+            for no, line in enumerate(path.read_text(encoding="utf-8").splitlines(), 1):
+                if banned.search(line):
+                    cited.append(f"{path.relative_to(root)}:{no}")
+    assert cited == []

@@ -80,7 +80,7 @@ def test_ngspice_one_to_six_stages(make, n):
 
 @pytest.mark.parametrize("name", HOSTILE_NAMES)
 def test_hostile_title_is_inert_in_ngspice(name):
-    """A name carrying a newline + .control/shell runs nothing (format brief sec. 5)."""
+    """A name carrying a newline + .control/shell runs nothing (ngspice manual)."""
     require_ngspice()
     deck = spice_deck(build_board(single_ni(1), name=name))
     stdout, listing = run_deck(deck)
@@ -103,7 +103,8 @@ def test_deck_has_no_control_content(name):
 
 
 def test_deck_structure_rules():
-    """Brief sec. 5: one AC source, RLOAD at OUT, exponent numbers, .print of v(out)."""
+    """ngspice manual (.ac, .print): one AC source, RLOAD at OUT, exponent numbers, .print
+    of v(out)."""
     deck = spice_deck(build_board(single_ni(3, buffered=True)))
     statements = [ln for ln in deck.splitlines()[1:] if not ln.startswith("*")]
     sources = [ln for ln in statements if " AC " in ln.upper() and not ln.startswith(".")]

@@ -1,7 +1,7 @@
 """EDA value notation, natural reference order, and the text neutralisers.
 
 References: E-series values from the PyPI package ``eseries`` (an independent IEC 60063
-implementation); KiCad's BOM conventions from the format brief (eda-formats.md sec. 4);
+implementation); KiCad's BOM conventions from the KiCad schematic-editor manual (BOM export);
 OWASP's CSV-injection guidance for formula leads; sexpdata 1.0.2 for S-expression escaping.
 """
 
@@ -49,7 +49,7 @@ def test_eda_value_refuses_nonsense(bad):
 
 
 def test_spice_numbers_have_no_suffix():
-    # SPICE reads "1M" as milli (format brief sec. 5): only mantissa + exponent is written
+    # SPICE reads "1M" as milli (ngspice manual, scale factors): only mantissa + exponent is written
     for v in (1e6, 4.7e-6, 100e-9, 12.0, 0.05, 1.59154943092e-3):
         text = spice_number(v)
         assert re.fullmatch(r"-?\d(\.\d+)?e[+-]\d\d", text)
@@ -64,13 +64,16 @@ def test_natural_sort_matches_kicad_bom_order():
 
 @pytest.mark.parametrize("name, expected", [
     ("Rx amp (v2)", "Rx-amp--v2-"), ("", DEFAULT_NAME), (None, DEFAULT_NAME),
-    ("a.b_c-D9", "a.b_c-D9"), ("../../etc/passwd", "..-..-etc-passwd"),
-    ('x"; rm -rf /', "x---rm--rf--"), ("ümlaut", "-mlaut"), ("x" * 100, "x" * 64),
-    ("\r\n", "--")])
+    ("a.b_c-D9", "a.b_c-D9"), ("../../etc/passwd", "etc-passwd"),
+    ('x"; rm -rf /', "x---rm--rf--"), ("ümlaut", "mlaut"), ("x" * 100, "x" * 64),
+    ("\r\n", DEFAULT_NAME), (".bashrc", "bashrc"), ("-rf", "rf"), ("--.-", DEFAULT_NAME),
+    ("-" + "y" * 100, "y" * 64)])
 def test_safe_filename_rules(name, expected):
-    """Issue 3: keep [A-Za-z0-9._-], others -> '-', cut to 64, default gainchain-design."""
+    """Issue 3: keep [A-Za-z0-9._-], others -> '-', cut to 64, default gainchain-design.
+    Issue 10: never a leading '.' (hidden file) or '-' (read as a command option): common
+    practice for download names."""
     assert safe_filename(name) == expected
-    assert re.fullmatch(r"[A-Za-z0-9._-]{1,64}", safe_filename(name))
+    assert re.fullmatch(r"[A-Za-z0-9_][A-Za-z0-9._-]{0,63}", safe_filename(name))
 
 
 @pytest.mark.parametrize("text, expected", [
@@ -93,6 +96,6 @@ def test_spice_title_is_one_safe_line(text):
 @pytest.mark.parametrize("text", ['say "hi"', "back\\slash", "new\nline", "cr\rhere",
                                   "(paren) )(", "utf-8 µ"])
 def test_sx_round_trips_through_sexpdata(text):
-    """sexpdata undoes the escapes as KiCad's lexer does (format brief sec. 2)."""
+    """sexpdata undoes the escapes as KiCad's lexer does (KiCad file-format documentation)."""
     assert sexpdata.loads(f"(x {sx(text)})")[1] == text
     assert "\n" not in sx(text) and "\r" not in sx(text)

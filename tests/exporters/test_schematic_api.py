@@ -107,7 +107,7 @@ def test_png_default_and_one_sided_sizes(client):
 def test_bad_size_is_422_naming_the_parameter(client, strict_json, query):
     resp = client.post(f"/v1/plots/schematic.png?{query}", json=README_SCENARIO)
     assert resp.status_code == 422 and resp.mimetype == PROBLEM
-    assert query.split("=")[0] in strict_json(resp.data)["errors"]
+    assert query.split("=")[0] in strict_json(resp.data)["errors"]["query"]
 
 
 @pytest.mark.parametrize("body,field", [

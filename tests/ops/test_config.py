@@ -40,7 +40,11 @@ def test_debug_cannot_be_switched_on():
 def test_server_settings():
     s = server_settings({}, cpu_count=8)
     assert s == {"host": "127.0.0.1", "port": 8000, "workers": 8, "timeout_s": 30,
-                 "log_level": "INFO"}
+                 "log_level": "INFO", "threads": 4, "bind": None}
+    s = server_settings({"GAINCHAIN_THREADS": "8", "GAINCHAIN_BIND": "unix:/tmp/x.sock"})
+    assert (s["threads"], s["bind"]) == (8, "unix:/tmp/x.sock")
+    with pytest.raises(RuntimeError, match="GAINCHAIN_THREADS"):
+        server_settings({"GAINCHAIN_THREADS": "0"})
     assert server_settings({}, cpu_count=1)["workers"] == 2
     s = server_settings({"HOST": "0.0.0.0", "PORT": "9001", "GAINCHAIN_WORKERS": "3"},
                         cpu_count=8)

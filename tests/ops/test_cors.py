@@ -58,10 +58,13 @@ def test_preflight_from_allowed_origin(client):
     assert resp.headers["X-Content-Type-Options"] == "nosniff"
 
 
-def test_preflight_from_refused_origin_gets_no_cors_headers(client):
+def test_preflight_from_refused_origin_needs_a_key(client):
+    # Only an allowed origin's preflight skips authentication; any other OPTIONS would
+    # otherwise tell a caller without a key which routes exist (Allow header).
     resp = client.options("/v1/designs", headers={
         "Origin": "https://evil.example.invalid", "Access-Control-Request-Method": "POST"})
-    assert resp.status_code != 401  # preflights are exempt from auth either way
+    assert resp.status_code == 401
+    assert "Allow" not in resp.headers
     assert "Access-Control-Allow-Origin" not in resp.headers
 
 
@@ -70,12 +73,15 @@ def test_no_cors_headers_at_all_when_not_configured():
     assert not [h for h in resp.headers.keys() if h.startswith("Access-Control-")]
 
 
-def test_preflight_is_exempt_from_auth_even_without_cors():
+def test_preflight_needs_a_key_when_cors_is_off():
+    # Issue 10: with CORS off no preflight is ours to answer; without a key it is 401, and
+    # an unknown route answers the same 401 (nothing tells which routes exist).
     client = make_app({"GAINCHAIN_API_KEYS": "k-1"}).test_client()
-    resp = client.options("/v1/designs", headers={
-        "Origin": PORTAL, "Access-Control-Request-Method": "POST"})
-    assert resp.status_code == 200  # Flask's automatic OPTIONS answer
-    assert "Access-Control-Allow-Origin" not in resp.headers
-    # A plain OPTIONS (not a preflight) still needs the key.
-    assert make_app({"GAINCHAIN_API_KEYS": "k-1"}).test_client().options(
-        "/v1/designs").status_code == 401
+    preflight = {"Origin": PORTAL, "Access-Control-Request-Method": "POST"}
+    for path in ("/v1/designs", "/v1/no-such-route"):
+        resp = client.options(path, headers=preflight)
+        assert resp.status_code == 401, path
+        assert "Allow" not in resp.headers and "Access-Control-Allow-Origin" not in resp.headers
+    # A plain OPTIONS (not a preflight) needs the key too; with it, Flask's answer.
+    assert client.options("/v1/designs").status_code == 401
+    assert client.options("/v1/designs", headers=dict(preflight, **AUTH)).status_code == 200

@@ -158,7 +158,10 @@ def test_readyz_is_503_problem_without_a_catalog():
 def test_largest_monte_carlo_is_cut_by_the_budget():
     # 12 stages x 100,000 trials (both at their schema limits) takes several seconds on this
     # machine class; with a 0.3 s budget the engine's deadline checks end it with a 503.
-    client = make_app({"GAINCHAIN_COMPUTE_BUDGET_S": "0.3"}).test_client()
+    # (The default cost limit refuses it up front: tests/ops/test_cost_limits.py; raised
+    # here so that the budget itself is what stops it.)
+    client = make_app({"GAINCHAIN_COMPUTE_BUDGET_S": "0.3",
+                       "GAINCHAIN_MAX_COST_UNITS": "100000000"}).test_client()
     body = {"target": {"gain_db": 60, "f_low_hz": 2000, "f_high_hz": 200000},
             "supply": {"kind": "single", "v_pos": 5}, "opamp": "gc-cmos-rr-10m",
             "stages": 12, "tolerance": {"trials": 100000}}

@@ -30,16 +30,30 @@ def test_spec_validates(spec):
     validate(spec)  # raises OpenAPIValidationError on any violation
 
 
-def test_spec_with_auth_validates_and_declares_401():
+def test_spec_does_not_depend_on_configuration(spec):
+    # Issue 10: every /v1 operation documents 401 (and the front's 429) whether or not keys
+    # are configured; the document is the same either way.
     app = make_app({"GAINCHAIN_API_KEYS": "k"}, test_routes=False)
     doc = json.loads(app.test_client().get("/openapi.json").data)
     validate(doc)
+    assert doc == spec
     assert doc["components"]["securitySchemes"]["bearerAuth"]["scheme"] == "bearer"
     for path, item in doc["paths"].items():
         for op in item.values():
             public = path in {"/healthz", "/readyz", "/metrics", "/openapi.json"}
             assert ("401" in op["responses"]) is not public, path
+            assert ("429" in op["responses"]) is not public, path
             assert ("security" in op) is not public, path
+            # A request the front or gunicorn cannot read is refused before any route.
+            assert {"400", "414", "431", "500"} <= set(op["responses"]), path
+
+
+def test_opamp_listing_documents_its_errors_as_problem_json(spec):
+    responses = spec["paths"]["/v1/opamps"]["get"]["responses"]
+    errors = {status: resp for status, resp in responses.items() if int(status) >= 400}
+    assert {"400", "401", "414", "429", "431", "500"} <= set(errors)
+    for resp in errors.values():
+        assert list(resp["content"]) == [PROBLEM_MEDIA]
 
 
 def test_every_route_but_docs_is_documented(plain_app, spec):

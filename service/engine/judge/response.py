@@ -39,11 +39,24 @@ def log_frequencies(f_start_hz: float, f_stop_hz: float, points: int) -> np.ndar
 
 
 def gain_phase(h: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """``20 log10 |h|`` (dB) and the unwrapped phase of ``h`` (degrees)."""
+    """``20 log10 |h|`` (dB) and the phase of ``h`` (degrees), unwrapped along the curve and
+    anchored at the gain peak: the phase there is wrapped into (-180, 180] and the rest of
+    the curve follows continuously from it (``numpy.unwrap``). So the midband phase reads
+    as 0 or 180 degrees (non-inverting or inverting overall), never -360 or -720."""
     with np.errstate(divide="ignore"):
         gain_db = 20.0 * np.log10(np.abs(h))
     phase_deg = np.degrees(np.unwrap(np.angle(h)))
+    magnitude = np.abs(h)
+    finite = np.isfinite(magnitude) & np.isfinite(phase_deg)
+    if finite.any():
+        peak = int(np.argmax(np.where(finite, magnitude, -np.inf)))
+        phase_deg = phase_deg + (wrap_deg(phase_deg[peak]) - phase_deg[peak])
     return gain_db, phase_deg
+
+
+def wrap_deg(phase_deg: float) -> float:
+    """``phase_deg`` wrapped into (-180, 180] degrees."""
+    return float(phase_deg - 360.0 * math.ceil((phase_deg - 180.0) / 360.0))
 
 
 def response_block(circuit: Circuit, *, as_built: dict, points: int = DEFAULT_POINTS,

@@ -1,7 +1,8 @@
 """The built-in op-amp catalog: generic archetypes with invented ids and typical figures.
 
 None of these is a real part: each entry stands for a *class* of op-amp with figures of the
-order a datasheet of that class gives (typical values, room temperature). Real part numbers
+order a datasheet of that class gives (typical values, room temperature), rounded to one
+or two significant digits so that no entry copies any single datasheet. Real part numbers
 and manufacturers only ever come from an organisation's approved-parts file
 (``GAINCHAIN_OPAMP_CATALOG``), loaded by ``service.catalog_state``.
 """
@@ -15,9 +16,9 @@ _NOTE = "Generic archetype, typical figures; not a real part."
 BUILTIN_OPAMPS: tuple[OpAmp, ...] = (
     OpAmp(id="gc-jfet-4m", description=f"4 MHz JFET-input dual; input range stops 3 V short "
           f"of the negative rail. {_NOTE}",
-          gbw_hz=4e6, slew_v_per_us=13.0, swing_to_pos_v=1.5, swing_to_neg_v=1.5,
-          supply_min_v=7.0, supply_max_v=36.0, a0_db=100.0, cm_to_pos_v=0.5, cm_to_neg_v=3.0,
-          en_v_per_rthz=18e-9, in_a_per_rthz=1e-14, ib_a=30e-12, vos_v=3e-3, iq_a=1.4e-3,
+          gbw_hz=4e6, slew_v_per_us=10.0, swing_to_pos_v=1.5, swing_to_neg_v=1.5,
+          supply_min_v=8.0, supply_max_v=36.0, a0_db=100.0, cm_to_pos_v=0.5, cm_to_neg_v=3.0,
+          en_v_per_rthz=20e-9, in_a_per_rthz=1e-14, ib_a=50e-12, vos_v=2e-3, iq_a=2e-3,
           channels_per_package=2, min_stable_gain=1.0),
     OpAmp(id="gc-cmos-rr-10m", description=f"10 MHz rail-to-rail input/output CMOS dual. {_NOTE}",
           gbw_hz=10e6, slew_v_per_us=8.0, swing_to_pos_v=0.05, swing_to_neg_v=0.05,
@@ -25,9 +26,9 @@ BUILTIN_OPAMPS: tuple[OpAmp, ...] = (
           en_v_per_rthz=12e-9, in_a_per_rthz=1e-15, ib_a=1e-12, vos_v=1e-3, iq_a=1.1e-3,
           channels_per_package=2, min_stable_gain=1.0),
     OpAmp(id="gc-bjt-lownoise-8m", description=f"8 MHz low-noise bipolar dual. {_NOTE}",
-          gbw_hz=8e6, slew_v_per_us=3.0, swing_to_pos_v=1.2, swing_to_neg_v=1.2,
+          gbw_hz=8e6, slew_v_per_us=5.0, swing_to_pos_v=1.2, swing_to_neg_v=1.2,
           supply_min_v=10.0, supply_max_v=36.0, a0_db=120.0, cm_to_pos_v=2.0, cm_to_neg_v=2.0,
-          en_v_per_rthz=3.2e-9, in_a_per_rthz=4e-13, ib_a=100e-9, vos_v=50e-6, iq_a=2.5e-3,
+          en_v_per_rthz=4e-9, in_a_per_rthz=5e-13, ib_a=200e-9, vos_v=100e-6, iq_a=3e-3,
           channels_per_package=2, min_stable_gain=1.0),
     OpAmp(id="gc-micro-1m", description=f"1 MHz micropower rail-to-rail CMOS quad. {_NOTE}",
           gbw_hz=1e6, slew_v_per_us=0.6, swing_to_pos_v=0.02, swing_to_neg_v=0.02,
