@@ -43,7 +43,9 @@ PROBE_TIMEOUT_S = 1.0  # the issue's availability goal: /healthz answers within 
 
 README = {"name": "front-check", "target": {"gain_db": 60, "f_low_hz": 2000,
                                            "f_high_hz": 200000},
-          "supply": {"kind": "single", "v_pos": 5}, "opamp": "gc-cmos-rr-10m"}
+          "supply": {"kind": "single", "v_pos": 5}, "opamp": "gc-cmos-rr-10m",
+          # 1 mV in: 60 dB then swings 1 V (the default 10 mV would clip on 5 V)
+          "signal": {"input_peak_v": 0.001, "source_impedance_ohm": 200, "load_ohm": 10000}}
 # The largest valid request under the default cost limit (service/ops/cost.py):
 # 1500 + 21,000 x (12 + 2) = 295,500 units <= 300,000.
 MAXIMAL = dict(README, stages=12, tolerance={"trials": 21_000})
