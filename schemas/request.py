@@ -14,6 +14,7 @@ from schemas.opamp import OpAmpField
 from service.engine.synthesis.eseries import CAPACITOR_SERIES, RESISTOR_SERIES
 from service.engine.synthesis.ideal import MAX_STAGES
 from service.engine.model.circuit import TOPOLOGIES, Components, Limits, Signal, Target
+from service.engine.model.parts import Tolerances
 
 #: Agreement asked of ``gain`` and ``gain_db`` when both are given (relative, on the ratio).
 GAIN_AGREEMENT = 1e-6
@@ -92,6 +93,21 @@ class LimitsSchema(Schema):
         return Limits(**data)
 
 
+class TolerancesSchema(Schema):
+    """The ``tolerances`` block: echoed by every design, accepted by /v1/analyses (each part
+    kind's tolerance in percent; defaults as in a design request's ``components``)."""
+
+    resistor_tolerance_pct = StrictFloat(load_default=1.0, validate=Range(min=0, max=50))
+    c0g_tolerance_pct = StrictFloat(load_default=5.0, validate=Range(min=0, max=80))
+    capacitor_tolerance_pct = StrictFloat(load_default=10.0, validate=Range(min=0, max=80))
+    electrolytic_tolerance_pct = StrictFloat(load_default=20.0, validate=Range(min=0, max=80))
+    gbw_tolerance_pct = StrictFloat(load_default=0.0, validate=Range(min=0, max=90))
+
+    @post_load
+    def _make(self, data, **kwargs) -> Tolerances:
+        return Tolerances(**data)
+
+
 class SignalSchema(Schema):
     input_peak_v = StrictFloat(load_default=0.01, validate=Range(min=0, max=1000,
                                                                  min_inclusive=False))
@@ -111,6 +127,9 @@ class ComponentsSchema(Schema):
     resistor_tolerance_pct = StrictFloat(load_default=1.0, validate=Range(min=0, max=50))
     capacitor_tolerance_pct = StrictFloat(load_default=10.0, validate=Range(min=0, max=80))
     impedance_ohm = StrictFloat(load_default=10_000.0, validate=Range(min=10, max=1e7))
+    c0g_tolerance_pct = StrictFloat(load_default=5.0, validate=Range(min=0, max=80))
+    electrolytic_tolerance_pct = StrictFloat(load_default=20.0, validate=Range(min=0, max=80))
+    gbw_tolerance_pct = StrictFloat(load_default=0.0, validate=Range(min=0, max=90))
     max_capacitor_f = LimitsSchema._declared_fields["max_capacitor_f"]
     min_resistor_ohm = LimitsSchema._declared_fields["min_resistor_ohm"]
     max_resistor_ohm = LimitsSchema._declared_fields["max_resistor_ohm"]
@@ -179,14 +198,6 @@ class DesignRequestSchema(Schema):
     supply_rejection_hz = StrictFloat(validate=F_RANGE)
 
 
-class AnalysisToleranceSchema(ToleranceOptionsSchema):
-    """For /v1/analyses the passive tolerances must be given (there is no request
-    ``components`` block to take them from)."""
-
-    resistor_tolerance_pct = StrictFloat(required=True, validate=Range(min=0, max=50))
-    capacitor_tolerance_pct = StrictFloat(required=True, validate=Range(min=0, max=80))
-
-
 class AnalysisRequestSchema(Schema):
     name = fields.String(validate=Length(max=80), allow_none=True)
     circuit = fields.Nested(CircuitSchema, required=True)
@@ -194,11 +205,12 @@ class AnalysisRequestSchema(Schema):
                                                                  min_inclusive=False))
     target = fields.Nested(TargetSchema, allow_none=True, load_default=None)
     limits = fields.Nested(LimitsSchema, load_default=lambda: Limits())
-    tolerance = fields.Nested(AnalysisToleranceSchema)
+    tolerances = fields.Nested(TolerancesSchema, load_default=lambda: Tolerances())
+    tolerance = fields.Nested(ToleranceOptionsSchema)
     response = fields.Nested(ResponseOptionsSchema)
     temperature_k = StrictFloat(load_default=300.0, validate=Range(min=1, max=1000))
     supply_rejection_hz = StrictFloat(validate=F_RANGE)
 
 
 __all__ = ["DesignRequestSchema", "AnalysisRequestSchema", "TargetSchema", "StrictInteger",
-           "LimitsSchema", "limits_of"]
+           "LimitsSchema", "TolerancesSchema", "limits_of"]

@@ -147,6 +147,17 @@ class TradeoffSchema(Schema):
     required_gbw_stages = fields.Integer(allow_none=True)
 
 
+class TolerancesOutSchema(Schema):
+    """Each part kind's tolerance (percent): the one its BOM line states and the Monte
+    Carlo and yield use; /v1/analyses accepts the block as it is."""
+
+    resistor_tolerance_pct = fields.Float()
+    c0g_tolerance_pct = fields.Float()
+    capacitor_tolerance_pct = fields.Float()
+    electrolytic_tolerance_pct = fields.Float()
+    gbw_tolerance_pct = fields.Float()
+
+
 class _AnalysesBlocks(Schema):
     noise = fields.Nested(NoiseBlockSchema)
     supply_rejection = fields.Nested(SupplyRejectionBlockSchema, allow_none=True)
@@ -166,11 +177,13 @@ class DesignResponseSchema(_AnalysesBlocks):
     headroom = fields.Nested(HeadroomSchema)
     bias = fields.Nested(BiasReportSchema)
     tradeoff = fields.Nested(TradeoffSchema)
+    tolerances = fields.Nested(TolerancesOutSchema)
     warnings = fields.List(fields.Nested(WarningSchema))
     cautions = fields.List(fields.String())
 
 
 class AnalysisResponseSchema(_AnalysesBlocks):
+    tolerances = fields.Nested(TolerancesOutSchema)
     name = fields.String(allow_none=True)
     status = fields.String(metadata={"enum": ["meets_target", "target_not_met"]})
     shortfalls = fields.List(fields.Nested(ShortfallSchema))

@@ -17,6 +17,7 @@ from service.engine.synthesis import design as design_mod
 from service.engine.judge import extras
 from service.engine import report
 from service.engine.model.circuit import Circuit, DesignRequest
+from service.engine.model.parts import Tolerances, tolerances_of
 from service.errors import ApiProblem
 
 _DESIGN_SCHEMA = DesignRequestSchema()
@@ -47,22 +48,23 @@ def load_design_request(body, catalog=None) -> tuple[DesignRequest, dict]:
                         signal=data["signal"][0], topology=data["topology"],
                         stages=data["stages"], components=data["components"][0],
                         strict=data["strict"], name=data.get("name"), limits=limits_of(data))
-    options = _options(data)
-    if "tolerance" in options:
-        # The passive tolerances default to the request's components (issue 4).
-        tol = dict(options["tolerance"])
-        for key in ("resistor_tolerance_pct", "capacitor_tolerance_pct"):
-            if tol.get(key) is None:
-                tol[key] = getattr(req.components, key)
-        options["tolerance"] = tol
+    options = _options(data, tolerances_of(req.components))
     return req, options
 
 
-def _options(data: dict) -> dict:
-    out = {"temperature_k": data.get("temperature_k", 300.0)}
+def _options(data: dict, tolerances: Tolerances) -> dict:
+    """Analyses options; the Monte Carlo takes every tolerance its block leaves out from the
+    request's normalised ``tolerances`` (one source of truth with the BOM)."""
+    out = {"temperature_k": data.get("temperature_k", 300.0), "tolerances": tolerances}
     for key in ("tolerance", "response", "supply_rejection_hz"):
         if data.get(key) is not None:
             out[key] = data[key]
+    if "tolerance" in out:
+        tol = dict(out["tolerance"])
+        for key, value in tolerances.to_dict().items():
+            if tol.get(key) is None:
+                tol[key] = value
+        out["tolerance"] = tol
     return out
 
 
@@ -123,7 +125,8 @@ def run_analysis(body) -> dict:
     target = data.get("target")
     out = {"name": data.get("name")}
     out.update(report.analysis_block(circuit, target=target, input_peak_v=data["input_peak_v"]))
-    options = _options(data)
+    out["tolerances"] = data["tolerances"].to_dict()
+    options = _options(data, data["tolerances"])
     out.update(extras.extra_blocks(circuit, target=target, input_peak_v=data["input_peak_v"],
                                    as_built=out["performance"]["as_built"], options=options,
                                    check_deadline=_deadline()))

@@ -12,6 +12,7 @@ from service.engine.judge import analysis
 from service.engine.synthesis import ideal
 from service.engine.synthesis.design import Design
 from service.engine.model.circuit import NON_INVERTING, Circuit, Target
+from service.engine.model.parts import tolerances_of
 
 CAUTIONS = (
     "gainchain is a design aid: build a prototype and measure it before relying on it.",
@@ -155,6 +156,7 @@ def design_block(design: Design) -> dict:
         "headroom": body["headroom"],
         "bias": body["bias"],
         "tradeoff": tradeoff_block(design),
+        "tolerances": tolerances_of(req.components).to_dict(),
         "warnings": body["warnings"],
         "cautions": body["cautions"],
     }

@@ -41,6 +41,7 @@ import numpy as np
 
 from service.engine.solver.chain import TWO_PI, ChainParams, params_from_circuit, solve_params
 from service.engine.solver.corners import F_MAX_HZ, find_band
+from service.engine.model import parts as parts_mod
 from service.engine.model.circuit import Circuit, Target
 
 MAX_TRIALS = 100_000
@@ -89,15 +90,31 @@ _SCALAR = {"c_out_f": "capacitor", "r_top_ohm": "resistor", "r_bottom_ohm": "res
 
 @dataclass(frozen=True)
 class Tolerances:
-    """Half-widths of the uniform distributions, in percent."""
+    """Half-widths of the uniform distributions, in percent, per part kind.
+
+    ``capacitor_pct`` is the class-2 ceramic (X7R/X5R) tolerance; ``c0g_pct`` and
+    ``electrolytic_pct`` default to it when not given (then every capacitor shares one
+    tolerance). Which class a capacitor is comes from
+    :func:`service.engine.model.parts.capacitor_class`, the exporters' own rule.
+    """
 
     resistor_pct: float
     capacitor_pct: float
     gbw_pct: float = 0.0
+    c0g_pct: float | None = None
+    electrolytic_pct: float | None = None
+
+    @classmethod
+    def from_block(cls, t: parts_mod.Tolerances) -> Tolerances:
+        """From the normalised ``tolerances`` block of a design or analysis."""
+        return cls(t.resistor_tolerance_pct, t.capacitor_tolerance_pct, t.gbw_tolerance_pct,
+                   t.c0g_tolerance_pct, t.electrolytic_tolerance_pct)
 
     def of(self, kind: str) -> float:
-        return {"resistor": self.resistor_pct, "capacitor": self.capacitor_pct,
-                "gbw": self.gbw_pct}[kind] / 100.0
+        pct = {"resistor": self.resistor_pct, "capacitor": self.capacitor_pct,
+               parts_mod.CLASS2: self.capacitor_pct, "gbw": self.gbw_pct,
+               parts_mod.C0G: self.c0g_pct, parts_mod.ELECTROLYTIC: self.electrolytic_pct}[kind]
+        return (self.capacitor_pct if pct is None else pct) / 100.0
 
 
 @dataclass(frozen=True)
@@ -122,16 +139,25 @@ class MonteCarloResult:
     model: str
 
 
-def varied_parts(params: ChainParams, tol: Tolerances) -> tuple[Part, ...]:
-    """Every part of ``params`` that exists and has a non-zero tolerance, in a fixed order."""
+def varied_parts(params: ChainParams, tol: Tolerances,
+                 kinds: dict | None = None) -> tuple[Part, ...]:
+    """Every part of ``params`` that exists and has a non-zero tolerance, in a fixed order.
+
+    ``kinds`` (``{(field, stage index | None): kind}``, from
+    :func:`service.engine.model.parts.capacitor_kinds`) gives each capacitor its class;
+    without it every capacitor is of kind ``"capacitor"``.
+    """
+    kinds = kinds or {}
     parts = []
     for k in range(len(params.r_feedback_ohm)):
         for name, kind in _PER_STAGE.items():
             value = getattr(params, name)[k]
+            kind = kinds.get((name, k), kind)
             if value is not None and tol.of(kind) > 0:
                 parts.append(Part(name, k, kind, float(value)))
     for name, kind in _SCALAR.items():
         value = getattr(params, name)
+        kind = kinds.get((name, None), kind)
         if value is not None and tol.of(kind) > 0:
             parts.append(Part(name, None, kind, float(value)))
     return tuple(parts)
@@ -481,7 +507,7 @@ def run(circuit: Circuit, *, trials: int, tol: Tolerances, rng: np.random.Genera
     if not 1 <= trials <= MAX_TRIALS:
         raise ValueError(f"trials must be 1..{MAX_TRIALS}, got {trials}")
     params = params_from_circuit(circuit)
-    parts = varied_parts(params, tol)
+    parts = varied_parts(params, tol, parts_mod.capacitor_kinds(circuit))
     values = draw(parts, trials, tol, rng)
     chunks = [(a, min(a + CHUNK_TRIALS, trials)) for a in range(0, trials, CHUNK_TRIALS)]
 
@@ -507,7 +533,7 @@ def worst_cases(circuit: Circuit, *, tol: Tolerances, grid_hz: np.ndarray) -> di
     """First-order worst case of each figure: ``{figure: (low, high)}`` (full chain-nodal
     model: only a handful of evaluations)."""
     params = params_from_circuit(circuit)
-    parts = varied_parts(params, tol)
+    parts = varied_parts(params, tol, parts_mod.capacitor_kinds(circuit))
     nominal = np.array([p.nominal for p in parts])
     if not parts:
         g, lo, hi = figures(params, grid_hz, 1)
@@ -563,10 +589,18 @@ def meets(result: MonteCarloResult, target: Target) -> np.ndarray:
 def tolerance_block(circuit: Circuit, *, target: Target | None, as_built: dict, trials: int,
                     seed: int, resistor_tolerance_pct: float, capacitor_tolerance_pct: float,
                     gbw_tolerance_pct: float = 0.0,
+                    c0g_tolerance_pct: float | None = None,
+                    electrolytic_tolerance_pct: float | None = None,
                     frequency_points: int = DEFAULT_FREQUENCY_POINTS,
                     check_deadline=None) -> dict:
-    """The response's ``tolerance`` block (JSON-ready)."""
-    tol = Tolerances(resistor_tolerance_pct, capacitor_tolerance_pct, gbw_tolerance_pct)
+    """The response's ``tolerance`` block (JSON-ready).
+
+    Each capacitor takes its class's tolerance (``c0g_tolerance_pct``,
+    ``capacitor_tolerance_pct`` for X7R/X5R, ``electrolytic_tolerance_pct``; the first and
+    last default to ``capacitor_tolerance_pct`` when not given).
+    """
+    tol = Tolerances(resistor_tolerance_pct, capacitor_tolerance_pct, gbw_tolerance_pct,
+                     c0g_tolerance_pct, electrolytic_tolerance_pct)
     f_low = _float_or_nan(as_built.get("f_low_hz"))
     f_high = _float_or_nan(as_built.get("f_high_hz"))
     if not math.isfinite(f_high):  # no high corner below 10 GHz: grid up to the range top
@@ -592,11 +626,14 @@ def tolerance_block(circuit: Circuit, *, target: Target | None, as_built: dict, 
         "seed": seed,
         "resistor_tolerance_pct": resistor_tolerance_pct,
         "capacitor_tolerance_pct": capacitor_tolerance_pct,
+        "c0g_tolerance_pct": tol.of(parts_mod.C0G) * 100.0,
+        "electrolytic_tolerance_pct": tol.of(parts_mod.ELECTROLYTIC) * 100.0,
         "gbw_tolerance_pct": gbw_tolerance_pct,
         "distribution": ("independent uniform: every resistor and capacitor (source and load "
                          "impedances excepted) at nominal*(1+t*u), u uniform on [-1, 1], t its "
-                         "tolerance; each op-amp unit's gain-bandwidth likewise within "
-                         "gbw_tolerance_pct"),
+                         "tolerance (a capacitor's by the class its BOM line states: C0G/NP0, "
+                         "X7R/X5R or aluminium electrolytic); each op-amp unit's "
+                         "gain-bandwidth likewise within gbw_tolerance_pct"),
         "model": {
             "name": result.model,
             "description": MODEL_DESCRIPTIONS[result.model],
