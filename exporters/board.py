@@ -274,12 +274,18 @@ def build_board(circuit: Circuit, *, name: str = "", size: str = DEFAULT_SIZE,
                 passives.append(("C", f"stage {k} coupling", st.c_couple_f, (x, f"M{k}")))
             passives.append(("R", f"stage {k} input", st.r_in_ohm, (f"M{k}", f"N{k}")))
             passives.append(("R", f"stage {k} feedback", st.r_feedback_ohm, (f"O{k}", f"N{k}")))
+            if st.c_feedback_f is not None:
+                passives.append(("C", f"stage {k} feedback (band limit)", st.c_feedback_f,
+                                 (f"O{k}", f"N{k}")))
         else:
             if st.c_couple_f is not None:
                 passives.append(("C", f"stage {k} coupling", st.c_couple_f, (x, f"P{k}")))
             if st.r_bias_ohm is not None:
                 passives.append(("R", f"stage {k} bias", st.r_bias_ohm, (f"P{k}", ref_node)))
             passives.append(("R", f"stage {k} feedback", st.r_feedback_ohm, (f"O{k}", f"N{k}")))
+            if st.c_feedback_f is not None:
+                passives.append(("C", f"stage {k} feedback (band limit)", st.c_feedback_f,
+                                 (f"O{k}", f"N{k}")))
             if st.c_gain_f is None:
                 passives.append(("R", f"stage {k} gain", st.r_gain_ohm, (f"N{k}", ref_node)))
             else:

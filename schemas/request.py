@@ -29,6 +29,9 @@ class TargetSchema(Schema):
     f_high_hz = StrictFloat(required=True, validate=F_RANGE)
     gain_tolerance_db = StrictFloat(load_default=0.5, validate=Range(min=0, max=60,
                                                                      min_inclusive=False))
+    f_high_max_hz = StrictFloat(load_default=None, allow_none=True, validate=F_RANGE)
+    f_low_min_hz = StrictFloat(load_default=None, allow_none=True, validate=F_RANGE)
+    min_yield = StrictFloat(load_default=0.9, validate=Range(min=0, max=1, min_inclusive=False))
 
     @validates_schema
     def _consistent(self, data, **kwargs):
@@ -47,6 +50,13 @@ class TargetSchema(Schema):
                                   "f_low_hz")
         if low is not None and 0 < low < 1e-3:
             raise ValidationError("f_low_hz must be 0 (DC coupled) or at least 1 mHz", "f_low_hz")
+        high_max, low_min = data.get("f_high_max_hz"), data.get("f_low_min_hz")
+        if high_max is not None and high is not None and not high_max > high:
+            raise ValidationError(f"f_high_max_hz ({high_max:g}) must be above f_high_hz "
+                                  f"({high:g})", "f_high_max_hz")
+        if low_min is not None and low is not None and not low_min < low:
+            raise ValidationError(f"f_low_min_hz ({low_min:g}) must be below f_low_hz "
+                                  f"({low:g})", "f_low_min_hz")
 
     @post_load
     def _make(self, data, **kwargs) -> Target:
@@ -56,7 +66,9 @@ class TargetSchema(Schema):
             gain_db = 20.0 * math.log10(gain)
         return Target.from_gain(gain=gain, gain_db=gain_db, f_low_hz=data["f_low_hz"],
                                 f_high_hz=data["f_high_hz"],
-                                gain_tolerance_db=data["gain_tolerance_db"])
+                                gain_tolerance_db=data["gain_tolerance_db"],
+                                f_high_max_hz=data["f_high_max_hz"],
+                                f_low_min_hz=data["f_low_min_hz"], min_yield=data["min_yield"])
 
 
 #: Request fields that set a limit, by the block they sit in (the response echoes them all

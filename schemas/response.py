@@ -30,10 +30,14 @@ class TargetOutSchema(Schema):
     f_low_hz = OutFloat()
     f_high_hz = OutFloat()
     gain_tolerance_db = OutFloat()
+    f_high_max_hz = OutFloat(allow_none=True)
+    f_low_min_hz = OutFloat(allow_none=True)
+    min_yield = OutFloat()
 
 
 class ShortfallSchema(Schema):
-    quantity = fields.String(metadata={"description": "f_low_hz, f_high_hz, gain_db or "
+    quantity = fields.String(metadata={"description": "f_low_hz, f_high_hz, gain_db, "
+                                                      "f_high_max_hz, f_low_min_hz, yield or "
                                                       "noise_gain"})
     target = OutFloat()
     achieved = OutFloat()

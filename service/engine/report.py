@@ -25,6 +25,11 @@ CAUTIONS = (
 )
 
 
+#: Without ``f_high_max_hz``, an as-built f_high this many times the target draws a warning
+#: (output noise grows with the square root of the noise bandwidth; common practice).
+WIDE_BAND_RATIO = 4.0
+
+
 def bias_block(circuit: Circuit, reason: str | None) -> dict:
     """VMID, why it sits there, the divider and bypass values and the bias node's impedance."""
     if circuit.bias is None:
@@ -81,6 +86,13 @@ def analysis_block(circuit: Circuit, *, target: Target | None, input_peak_v: flo
         "warnings": warnings,
         "cautions": list(CAUTIONS),
     }
+    if (target is not None and target.f_high_max_hz is None
+            and ab.f_high_hz > WIDE_BAND_RATIO * target.f_high_hz):
+        warnings.append(_warn("band_wider_than_needed",
+                              f"The as-built f_high of {ab.f_high_hz:.4g} Hz is "
+                              f"{ab.f_high_hz / target.f_high_hz:.3g} times the target's "
+                              f"{target.f_high_hz:.4g} Hz: noise bandwidth is wasted; give "
+                              "target.f_high_max_hz to band-limit the stages."))
     if target is not None:
         status, shortfalls = analysis.status_of(ab, target, circuit)
         out["status"] = status

@@ -77,6 +77,8 @@ def netlist(circuit: Circuit, *, signal_ac: float, supply_ac: float) -> tuple[li
                 lines.append(f"cc{k} {x} {m} {_n(st.c_couple_f)}")
             lines.append(f"rin{k} {m} {n} {_n(st.r_in_ohm)}")
             lines.append(f"rf{k} {o} {n} {_n(st.r_feedback_ohm)}")
+            if st.c_feedback_f is not None:
+                lines.append(f"cf{k} {o} {n} {_n(st.c_feedback_f)}")
             opamp(ref, n, o)
         else:
             p = x
@@ -86,6 +88,8 @@ def netlist(circuit: Circuit, *, signal_ac: float, supply_ac: float) -> tuple[li
             if st.r_bias_ohm is not None:
                 lines.append(f"rb{k} {p} {ref} {_n(st.r_bias_ohm)}")
             lines.append(f"rf{k} {o} {n} {_n(st.r_feedback_ohm)}")
+            if st.c_feedback_f is not None:
+                lines.append(f"cf{k} {o} {n} {_n(st.c_feedback_f)}")
             if st.c_gain_f is None:
                 lines.append(f"rg{k} {n} {ref} {_n(st.r_gain_ohm)}")
             else:
@@ -119,6 +123,35 @@ def ripple_deck(circuit: Circuit, f_start_hz: float, f_stop_hz: float,
     return "\n".join(["gainchain supply ripple cross-check", *lines, ".control",
                       f"ac dec {per_decade} {_n(f_start_hz)} {_n(f_stop_hz)}",
                       f"print {vdb}", "quit", ".endc", ".end", ""])
+
+
+def ac_deck(circuit: Circuit, f_start_hz: float, f_stop_hz: float,
+            per_decade: int = 100) -> str:
+    """``.ac`` of Vout/Vs (the signal source at 1 V AC, the supply quiet): prints vdb."""
+    lines, out = netlist(circuit, signal_ac=1.0, supply_ac=0.0)
+    vdb = "vdb" + out[1:]
+    return "\n".join(["gainchain signal cross-check", *lines, ".control",
+                      f"ac dec {per_decade} {_n(f_start_hz)} {_n(f_stop_hz)}",
+                      f"print {vdb}", "quit", ".endc", ".end", ""])
+
+
+def corners_db(f_hz, vdb) -> tuple[float, float, float]:
+    """(peak dB, low and high -3 dB crossings nearest the peak) of a sampled response,
+    interpolated linearly in dB against log f (nan where the sweep has no crossing)."""
+    import numpy as np
+
+    f_hz, vdb = np.asarray(f_hz, float), np.asarray(vdb, float)
+    i = int(np.argmax(vdb))
+    thr = vdb[i] - 10 * math.log10(2.0)
+
+    def cross(j0, j1):
+        x0, x1 = math.log(f_hz[j0]), math.log(f_hz[j1])
+        y0, y1 = vdb[j0] - thr, vdb[j1] - thr
+        return math.exp(x0 - y0 * (x1 - x0) / (y1 - y0))
+
+    high = next((cross(j - 1, j) for j in range(i + 1, len(f_hz)) if vdb[j] < thr), math.nan)
+    low = next((cross(j + 1, j) for j in range(i - 1, -1, -1) if vdb[j] < thr), math.nan)
+    return float(vdb[i]), low, high
 
 
 def run(deck: str, timeout_s: float = 120.0) -> str:

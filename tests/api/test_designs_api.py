@@ -57,9 +57,10 @@ def test_design_happy_paths(client, strict_json, name):
     assert body["stage_count"] == len(circuit["stages"])
     if "stages" in req:
         assert body["stage_count"] == req["stages"]
-    keys = {"non_inverting": {"c_couple_f", "r_bias_ohm", "r_feedback_ohm", "r_gain_ohm",
-                              "c_gain_f"},
-            "inverting": {"c_couple_f", "r_in_ohm", "r_feedback_ohm"}}[circuit["topology"]]
+    keys = {"non_inverting": {"c_couple_f", "r_bias_ohm", "r_feedback_ohm", "c_feedback_f",
+                              "r_gain_ohm", "c_gain_f"},
+            "inverting": {"c_couple_f", "r_in_ohm", "r_feedback_ohm", "c_feedback_f"}
+            }[circuit["topology"]]
     for st in circuit["stages"]:
         assert set(st) == keys  # every listed key present, absent parts null
         assert st["r_feedback_ohm"] is not None

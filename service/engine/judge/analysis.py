@@ -284,7 +284,7 @@ def headroom(circuit: Circuit, ab: AsBuilt, input_peak_v: float,
 
 def status_of(ab: AsBuilt, target: Target, circuit: Circuit | None = None) -> tuple[str, list]:
     """``meets_target`` when f_low <= target, f_high >= target and the gain is in
-    tolerance, and (given the circuit) every op-amp unit runs at a noise gain it is stable
+    tolerance, the band stays inside ``f_low_min_hz`` / ``f_high_max_hz`` when given, and (given the circuit) every op-amp unit runs at a noise gain it is stable
     at: a circuit that may oscillate does not meet any target (shortfall ``noise_gain``)."""
     shortfalls = []
     f_low = 0.0 if math.isnan(ab.f_low_hz) else ab.f_low_hz
@@ -296,6 +296,12 @@ def status_of(ab: AsBuilt, target: Target, circuit: Circuit | None = None) -> tu
     if abs(ab.gain_db - target.gain_db) > target.gain_tolerance_db:
         shortfalls.append({"quantity": "gain_db", "target": target.gain_db,
                            "achieved": ab.gain_db})
+    if target.f_high_max_hz is not None and not ab.f_high_hz <= target.f_high_max_hz:
+        shortfalls.append({"quantity": "f_high_max_hz", "target": target.f_high_max_hz,
+                           "achieved": ab.f_high_hz})
+    if target.f_low_min_hz is not None and not f_low >= target.f_low_min_hz:
+        shortfalls.append({"quantity": "f_low_min_hz", "target": target.f_low_min_hz,
+                           "achieved": f_low})
     if circuit is not None:
         lowest = min(unit_noise_gains(circuit))
         if lowest < circuit.opamp.min_stable_gain:

@@ -82,7 +82,7 @@ MODEL_DESCRIPTIONS = {
 _PER_STAGE = {
     "c_couple_f": "capacitor", "r_bias_ohm": "resistor", "r_feedback_ohm": "resistor",
     "r_gain_ohm": "resistor", "c_gain_f": "capacitor", "r_in_ohm": "resistor",
-    "gbw_hz": "gbw",
+    "gbw_hz": "gbw", "c_feedback_f": "capacitor",
 }
 _SCALAR = {"c_out_f": "capacitor", "r_top_ohm": "resistor", "r_bottom_ohm": "resistor",
            "c_bypass_f": "capacitor"}
@@ -151,7 +151,8 @@ def varied_parts(params: ChainParams, tol: Tolerances,
     parts = []
     for k in range(len(params.r_feedback_ohm)):
         for name, kind in _PER_STAGE.items():
-            value = getattr(params, name)[k]
+            values = getattr(params, name)
+            value = None if values is None else values[k]
             kind = kinds.get((name, k), kind)
             if value is not None and tol.of(kind) > 0:
                 parts.append(Part(name, k, kind, float(value)))
@@ -208,6 +209,78 @@ def _polymul(p, q):
     return out
 
 
+def _polyadd(p, q):
+    """Sum of two coefficient lists (low first)."""
+    n = max(len(p), len(q))
+    return [(p[i] if i < len(p) else 0.0) + (q[i] if i < len(q) else 0.0) for i in range(n)]
+
+
+def _mag2_poly(c):
+    """``|c0 + c1 s + c2 s^2 + ...|^2`` at ``s = j w`` as a polynomial in ``x = w^2``.
+
+    With ``s^k = j^k w^k``: real part ``c0 - c2 x + c4 x^2 - ...``, imaginary part
+    ``w (c1 - c3 x + ...)``, so ``|P|^2 = Re(x)^2 + x Im'(x)^2`` (coefficients low first).
+    """
+    re = [c[i] * (-1.0) ** (i // 2) for i in range(0, len(c), 2)]
+    im = [c[i] * (-1.0) ** (i // 2) for i in range(1, len(c), 2)]
+    out = _polymul(re, re)
+    if im:
+        out = _polyadd(out, [0.0] + _polymul(im, im))
+    return out
+
+
+def feedback_stage_polys(p: ChainParams, k: int, cf):
+    """Stage k with a feedback capacitor: polynomials in ``s`` (coefficients low first).
+
+    ``Zf = Rf / df``, ``df = 1 + s Rf Cf``; ``tau = A0 / (2 pi GBW)``. Multiplying the stage
+    equations of :mod:`service.engine.solver.chain` through by ``df (1 + s tau)`` and by
+    ``s C`` of the stage's series capacitor (``Cg`` non-inverting, ``Cc`` inverting):
+
+    * non-inverting, ``Zg = Rg + 1/(s Cg)``: with ``L = Rf s Cg + (1 + s Rg Cg) df``,
+      ``O/P = A0 L / ((1 + s tau) L + A0 (1 + s Rg Cg) df)``; without ``Cg``
+      (``Rg`` to REF): ``L = Rf + Rg df``, ``O = (A0 L P - A0 Rf v_ref) / ((1 + s tau) L
+      + A0 Rg df)``;
+    * inverting, ``Zi = R'in + 1/(s Cc)``: ``L = Rf s Cc + (1 + s Cc R'in) df``,
+      ``O = (-A0 Rf s Cc X + A0 L v_ref) / ((1 + s tau) L + A0 (1 + s Cc R'in) df)``;
+      without ``Cc``: ``L = Rf + R'in df``, ``alpha = -A0 Rf``, the rest alike.
+
+    Returns ``(alpha, beta, den)``: the output is ``(alpha X + beta v_ref) / den`` for the
+    inverting stage and ``(alpha P - beta v_ref) / den`` for the non-inverting one
+    (``beta`` 0 when ``Cg`` exists).
+    """
+    a0 = p.a0
+    tau = a0 / (TWO_PI * p.gbw_hz[k])
+    rf = p.r_feedback_ohm[k]
+    df = [1.0, rf * cf]
+    lag = [1.0, tau]
+    if p.inverting:
+        rin = p.r_in_ohm[k] + (p.source_impedance_ohm if k == 0 else 0.0)
+        cc = p.c_couple_f[k]
+        if cc is None:
+            leg = [rin]
+            alpha = [-a0 * rf]
+            ell = _polyadd([rf], _polymul([rin], df))
+        else:
+            leg = [1.0, cc * rin]
+            alpha = [0.0, -a0 * rf * cc]
+            ell = _polyadd([0.0, rf * cc], _polymul(leg, df))
+        beta = [a0 * c for c in ell]
+    else:
+        rg = p.r_gain_ohm[k]
+        cg = p.c_gain_f[k]
+        if cg is None:
+            leg = [rg]
+            ell = _polyadd([rf], _polymul([rg], df))
+            beta = [a0 * rf]
+        else:
+            leg = [1.0, rg * cg]
+            ell = _polyadd([0.0, rf * cg], _polymul(leg, df))
+            beta = [0.0]
+        alpha = [a0 * c for c in ell]
+    den = _polyadd(_polymul(lag, ell), [a0 * c for c in _polymul(leg, df)])
+    return alpha, beta, den
+
+
 def _horner_into(coeffs, x, out):
     """Evaluate the polynomial ``coeffs`` (low first) at ``x`` into ``out``, in place.
 
@@ -239,6 +312,19 @@ def stage_factors(p: ChainParams) -> list:
         rf = p.r_feedback_ohm[k]
         cc = p.c_couple_f[k]
         series = rs if k == 0 else 0.0
+        cf = None if p.c_feedback_f is None else p.c_feedback_f[k]
+        if cf is not None:
+            alpha, _, den_s = feedback_stage_polys(p, k, cf)
+            num, den = _mag2_poly(alpha), _mag2_poly(den_s)
+            if not p.inverting:
+                rb = p.r_bias_ohm[k]
+                if cc is not None:
+                    num = _polymul([0.0, (cc * rb) ** 2], num)
+                    den = _polymul([1.0, (cc * (rb + series)) ** 2], den)
+                elif rb is not None and k == 0:
+                    num = _polymul([(rb / (rb + rs)) ** 2], num)
+            factors.append((num, den))
+            continue
         if p.inverting:
             rin = p.r_in_ohm[k] + series
             if cc is None:
@@ -317,6 +403,13 @@ def _poly_s(coeffs, s):
     return out
 
 
+def _poly_any(coeffs, s):
+    """``sum c_i s^i`` at complex ``s`` for any number of coefficients (low first)."""
+    if len(coeffs) == 1:
+        return coeffs[0] + 0.0 * s
+    return _poly_s(coeffs, s)
+
+
 #: The fraction-free recursion rescales its numerators every this many stages, so their
 #: growth (up to ~1e20 per stage at 10 GHz) never overflows a double.
 RESCALE_EVERY = 3
@@ -346,7 +439,7 @@ def shared_ref_mag(p: ChainParams, f_hz) -> np.ndarray:
     w = TWO_PI * np.asarray(f_hz, dtype=float)
     values = [p.load_ohm, p.r_top_ohm, p.r_bottom_ohm, p.c_bypass_f, p.c_out_f,
               *p.gbw_hz, *p.c_couple_f, *p.r_bias_ohm, *p.r_feedback_ohm, *p.r_gain_ohm,
-              *p.c_gain_f, *p.r_in_ohm]
+              *p.c_gain_f, *p.r_in_ohm, *(p.c_feedback_f or [])]
     shape = np.broadcast_shapes(w.shape, *(np.shape(v) for v in values if v is not None))
     s = np.zeros(shape, dtype=complex)
     s.imag = w
@@ -363,7 +456,18 @@ def shared_ref_mag(p: ChainParams, f_hz) -> np.ndarray:
         rf = p.r_feedback_ohm[k]
         cc = p.c_couple_f[k]
         rs_k = rs if k == 0 else 0.0
-        if p.inverting:
+        cf = None if p.c_feedback_f is None else p.c_feedback_f[k]
+        if p.inverting and cf is not None:
+            alpha_c, beta_c, den_c = feedback_stage_polys(p, k, cf)
+            den = _poly_any(den_c, s)
+            alpha_s = _poly_any(alpha_c, s)
+            new_b = b_n * alpha_s
+            new_b += q * _poly_any(beta_c, s)
+            a_n *= alpha_s
+            b_n = new_b
+            for arr in (q, ia, ib):
+                arr *= den
+        elif p.inverting:
             rin = p.r_in_ohm[k] + rs_k
             if cc is None:
                 den = _poly_s([rf + rin + a0 * rin, tau * (rf + rin)], s)
@@ -407,24 +511,46 @@ def shared_ref_mag(p: ChainParams, f_hz) -> np.ndarray:
                 q *= d_y
             rg = p.r_gain_ohm[k]
             cg = p.c_gain_f[k]
-            if cg is None:
-                den = _poly_s([rf + rg + a0 * rg, tau * (rf + rg)], s)
-                num = a0 * (rf + rg)
+            if cf is not None:
+                alpha_c, _, den_c = feedback_stage_polys(p, k, cf)
+                den = _poly_any(den_c, s)
+                num = _poly_any(alpha_c, s)
                 a_n *= num
                 b_n *= num
-                b_n -= q * (a0 * rf)
+                if cg is None:
+                    b_n -= q * (a0 * rf)
+                for arr in (q, ia, ib):
+                    arr *= den
+                if cg is None:
+                    # the leg O -> Zf -> Rg -> REF injects (O - v_ref) df / (Rf + Rg df):
+                    # every quantity goes over the common denominator q (Rf + Rg df)
+                    d_f = _poly_any([1.0, rf * cf], s)
+                    d_l = _poly_any([rf + rg, rg * rf * cf], s)
+                    inj_a = a_n * d_f
+                    inj_b = (b_n - q) * d_f
+                    for arr in (a_n, b_n, q, ia, ib):
+                        arr *= d_l
+                    ia += inj_a
+                    ib += inj_b
             else:
-                t_fg = cg * (rf + rg)
-                den = _poly_s([1.0 + a0, tau + t_fg + a0 * rg * cg, tau * t_fg], s)
-                num = _poly_s([a0, a0 * t_fg], s)
-                a_n *= num
-                b_n *= num
-            for arr in (q, ia, ib):
-                arr *= den
-            if cg is None:
-                leg = 1.0 / (rf + rg)
-                ia += a_n * leg
-                ib += (b_n - q) * leg
+                if cg is None:
+                    den = _poly_s([rf + rg + a0 * rg, tau * (rf + rg)], s)
+                    num = a0 * (rf + rg)
+                    a_n *= num
+                    b_n *= num
+                    b_n -= q * (a0 * rf)
+                else:
+                    t_fg = cg * (rf + rg)
+                    den = _poly_s([1.0 + a0, tau + t_fg + a0 * rg * cg, tau * t_fg], s)
+                    num = _poly_s([a0, a0 * t_fg], s)
+                    a_n *= num
+                    b_n *= num
+                for arr in (q, ia, ib):
+                    arr *= den
+                if cg is None:
+                    leg = 1.0 / (rf + rg)
+                    ia += a_n * leg
+                    ib += (b_n - q) * leg
         if (k + 1) % RESCALE_EVERY == 0:
             scale = 1.0 / np.abs(q)
             for arr in (a_n, b_n, ia, ib, q):
@@ -574,7 +700,8 @@ def summary(values: np.ndarray) -> dict:
 
 
 def meets(result: MonteCarloResult, target: Target) -> np.ndarray:
-    """Per trial: f_low <= target, f_high >= target, |gain_db - target| <= tolerance.
+    """Per trial: f_low <= target, f_high >= target, |gain_db - target| <= tolerance, and
+    the band inside ``f_low_min_hz`` / ``f_high_max_hz`` when the target gives them.
 
     A trial without a low corner on the grid (DC coupled, or far below the target) meets the
     low-corner condition; a trial without a high corner inside the grid meets the high one.
@@ -583,6 +710,10 @@ def meets(result: MonteCarloResult, target: Target) -> np.ndarray:
     with np.errstate(invalid="ignore"):
         low_ok = ~(result.f_low_hz > target.f_low_hz)
         high_ok = ~(result.f_high_hz < target.f_high_hz)
+        if target.f_high_max_hz is not None:
+            high_ok &= ~(result.f_high_hz > target.f_high_max_hz) & np.isfinite(result.f_high_hz)
+        if target.f_low_min_hz is not None:
+            low_ok &= result.f_low_hz >= target.f_low_min_hz
     return gain_ok & low_ok & high_ok
 
 

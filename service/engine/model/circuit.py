@@ -25,8 +25,9 @@ DUAL = "dual"
 
 #: Stage keys per topology, in the order the JSON form lists them.
 STAGE_KEYS = {
-    NON_INVERTING: ("c_couple_f", "r_bias_ohm", "r_feedback_ohm", "r_gain_ohm", "c_gain_f"),
-    INVERTING: ("c_couple_f", "r_in_ohm", "r_feedback_ohm"),
+    NON_INVERTING: ("c_couple_f", "r_bias_ohm", "r_feedback_ohm", "c_feedback_f", "r_gain_ohm",
+                    "c_gain_f"),
+    INVERTING: ("c_couple_f", "r_in_ohm", "r_feedback_ohm", "c_feedback_f"),
 }
 
 
@@ -117,7 +118,11 @@ class Bias:
 
 @dataclass(frozen=True)
 class Stage:
-    """One gain stage. Which keys apply depends on the circuit's topology (``STAGE_KEYS``)."""
+    """One gain stage. Which keys apply depends on the circuit's topology (``STAGE_KEYS``).
+
+    ``c_feedback_f`` (both topologies) sits across ``r_feedback_ohm`` (O_k-N_k): the
+    feedback impedance becomes ``Rf || 1/(s Cf)``, a band-limiting pole; None = none.
+    """
 
     r_feedback_ohm: float
     c_couple_f: float | None = None
@@ -125,6 +130,7 @@ class Stage:
     r_gain_ohm: float | None = None
     c_gain_f: float | None = None
     r_in_ohm: float | None = None
+    c_feedback_f: float | None = None
 
     def to_dict(self, topology: str) -> dict:
         return {k: getattr(self, k) for k in STAGE_KEYS[topology]}
@@ -189,24 +195,36 @@ class Circuit:
 
 @dataclass(frozen=True)
 class Target:
-    """Normalised cascade target: overall gain (ratio and dB) and the pass band."""
+    """Normalised cascade target: overall gain (ratio and dB) and the pass band.
+
+    ``f_high_max_hz`` / ``f_low_min_hz`` (optional) bound the as-built band from outside:
+    f_high must not exceed the first, f_low must not fall below the second. ``min_yield``
+    is the fraction of builds (parts independent and uniform within their tolerances) that
+    must meet all of it.
+    """
 
     gain: float
     gain_db: float
     f_low_hz: float
     f_high_hz: float
     gain_tolerance_db: float = 0.5
+    f_high_max_hz: float | None = None
+    f_low_min_hz: float | None = None
+    min_yield: float = 0.9
 
     @classmethod
     def from_gain(cls, *, gain: float | None = None, gain_db: float | None = None,
-                  f_low_hz: float, f_high_hz: float, gain_tolerance_db: float = 0.5) -> Target:
+                  f_low_hz: float, f_high_hz: float, gain_tolerance_db: float = 0.5,
+                  f_high_max_hz: float | None = None, f_low_min_hz: float | None = None,
+                  min_yield: float = 0.9) -> Target:
         """Either ``gain`` or ``gain_db`` (or both, when they agree) fixes the other."""
         if gain is None:
             gain = 10.0 ** (gain_db / 20.0)
         if gain_db is None:
             gain_db = 20.0 * math.log10(gain)
         return cls(gain=gain, gain_db=gain_db, f_low_hz=f_low_hz, f_high_hz=f_high_hz,
-                   gain_tolerance_db=gain_tolerance_db)
+                   gain_tolerance_db=gain_tolerance_db, f_high_max_hz=f_high_max_hz,
+                   f_low_min_hz=f_low_min_hz, min_yield=min_yield)
 
     def to_dict(self) -> dict:
         return asdict(self)

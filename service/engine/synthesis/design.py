@@ -36,6 +36,7 @@ import numpy as np
 
 from service.engine.solver import chain
 from service.engine.solver import corners
+from service.engine.synthesis import band_limit
 from service.engine.synthesis import eseries
 from service.engine.synthesis import ideal
 from service.engine.judge.analysis import (
@@ -247,6 +248,7 @@ def synthesize(req: DesignRequest, n: int) -> Synthesis:
     _, pairs, circuit, result = best
     if bias is not None and not bias.buffered:
         circuit, result, bias_reason = _settle_bias(req, pairs, circuit, result, bias_reason)
+    circuit = band_limit.limit_band(req, circuit)
     return Synthesis(circuit=circuit, as_built=as_built(circuit), bias_reason=bias_reason)
 
 
@@ -577,12 +579,19 @@ def design(req: DesignRequest, *, check_deadline=None) -> Design:
     else:
         tried: dict[int, Synthesis] = {}
         syn = None
+        first_met = None  # fewest stages meeting the target, before the band-limit rule
         for n in stage_counts_to_try(req):
             check_deadline("design")
             tried[n] = synthesize(req, n)
             if status_of(tried[n].as_built, req.target, tried[n].circuit)[0] == "meets_target":
-                syn = tried[n]
+                first_met = first_met or tried[n]
+                if band_limit.holds_against_gbw(req, tried[n].circuit):
+                    syn = tried[n]
+                    break
+            if first_met is not None and n >= first_met.circuit.n_stages + \
+                    band_limit.EXTRA_STAGES:
                 break
+        syn = syn or first_met
         if syn is None:
             reach = best_reach(req)
             for n in (reach - 1, reach, reach + 1):
