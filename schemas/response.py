@@ -162,6 +162,24 @@ class TolerancesOutSchema(Schema):
     gbw_tolerance_pct = fields.Float()
 
 
+class YieldFigureSchema(Schema):
+    nominal = OutFloat()
+    spread = OutFloat(allow_none=True, metadata={
+        "description": "standard deviation of the modelled figure under the tolerances"})
+    limit = fields.List(OutFloat(allow_none=True), metadata={
+        "description": "[low, high] the target allows (null: open side)"})
+
+
+class YieldBlockSchema(Schema):
+    """Predicted fraction of builds meeting the target under the ``tolerances``."""
+
+    predicted = OutFloat()
+    min_yield = OutFloat()
+    method = fields.String()
+    description = fields.String()
+    figures = fields.Dict(keys=fields.String(), values=fields.Nested(YieldFigureSchema))
+
+
 class _AnalysesBlocks(Schema):
     noise = fields.Nested(NoiseBlockSchema)
     supply_rejection = fields.Nested(SupplyRejectionBlockSchema, allow_none=True)
@@ -182,12 +200,14 @@ class DesignResponseSchema(_AnalysesBlocks):
     bias = fields.Nested(BiasReportSchema)
     tradeoff = fields.Nested(TradeoffSchema)
     tolerances = fields.Nested(TolerancesOutSchema)
+    yield_ = fields.Nested(YieldBlockSchema, data_key="yield", attribute="yield")
     warnings = fields.List(fields.Nested(WarningSchema))
     cautions = fields.List(fields.String())
 
 
 class AnalysisResponseSchema(_AnalysesBlocks):
     tolerances = fields.Nested(TolerancesOutSchema)
+    yield_ = fields.Nested(YieldBlockSchema, data_key="yield", attribute="yield")
     name = fields.String(allow_none=True)
     status = fields.String(metadata={"enum": ["meets_target", "target_not_met"]})
     shortfalls = fields.List(fields.Nested(ShortfallSchema))

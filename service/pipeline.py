@@ -124,7 +124,8 @@ def run_analysis(body) -> dict:
     circuit: Circuit = data["circuit"]
     target = data.get("target")
     out = {"name": data.get("name")}
-    out.update(report.analysis_block(circuit, target=target, input_peak_v=data["input_peak_v"]))
+    out.update(report.analysis_block(circuit, target=target, input_peak_v=data["input_peak_v"],
+                                     tolerances=data["tolerances"]))
     out["tolerances"] = data["tolerances"].to_dict()
     options = _options(data, data["tolerances"])
     out.update(extras.extra_blocks(circuit, target=target, input_peak_v=data["input_peak_v"],

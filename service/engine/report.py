@@ -8,11 +8,11 @@ from __future__ import annotations
 
 import math
 
-from service.engine.judge import analysis
+from service.engine.judge import analysis, yield_estimate
 from service.engine.synthesis import ideal
 from service.engine.synthesis.design import Design
 from service.engine.model.circuit import NON_INVERTING, Circuit, Target
-from service.engine.model.parts import tolerances_of
+from service.engine.model.parts import Tolerances, tolerances_of
 
 CAUTIONS = (
     "gainchain is a design aid: build a prototype and measure it before relying on it.",
@@ -70,8 +70,11 @@ def _warn(code: str, message: str) -> dict:
 
 
 def analysis_block(circuit: Circuit, *, target: Target | None, input_peak_v: float,
-                   bias_reason: str | None = None, ab: analysis.AsBuilt | None = None) -> dict:
-    """as_built, headroom, bias, warnings (and status/shortfalls given a target)."""
+                   bias_reason: str | None = None, ab: analysis.AsBuilt | None = None,
+                   tolerances: Tolerances | None = None,
+                   yield_est: yield_estimate.YieldEstimate | None = None) -> dict:
+    """as_built, headroom, bias, warnings (and status/shortfalls and the predicted ``yield``
+    under ``tolerances`` given a target)."""
     ab = ab or analysis.as_built(circuit)
     hr = analysis.headroom(circuit, ab, input_peak_v, target.f_high_hz if target else None)
     warnings = [_warn(c, m) for c, m in analysis.circuit_warnings(circuit) + hr.warnings]
@@ -95,6 +98,10 @@ def analysis_block(circuit: Circuit, *, target: Target | None, input_peak_v: flo
                               "target.f_high_max_hz to band-limit the stages."))
     if target is not None:
         status, shortfalls = analysis.status_of(ab, target, circuit)
+        if yield_est is None:
+            yield_est = yield_estimate.predict(circuit, target, tolerances or Tolerances())
+        status, shortfalls = yield_estimate.with_yield(status, shortfalls, yield_est)
+        out["yield"] = yield_estimate.yield_block(yield_est)
         out["status"] = status
         out["shortfalls"] = shortfalls
         if status != "meets_target":
@@ -154,7 +161,9 @@ def design_block(design: Design) -> dict:
     syn = design.synthesis
     circuit = syn.circuit
     body = analysis_block(circuit, target=req.target, input_peak_v=req.signal.input_peak_v,
-                          bias_reason=syn.bias_reason, ab=syn.as_built)
+                          bias_reason=syn.bias_reason, ab=syn.as_built,
+                          tolerances=tolerances_of(req.components),
+                          yield_est=syn.yield_estimate)
     return {
         "name": req.name,
         "status": body.pop("status"),
@@ -169,6 +178,7 @@ def design_block(design: Design) -> dict:
         "bias": body["bias"],
         "tradeoff": tradeoff_block(design),
         "tolerances": tolerances_of(req.components).to_dict(),
+        "yield": body["yield"],
         "warnings": body["warnings"],
         "cautions": body["cautions"],
     }

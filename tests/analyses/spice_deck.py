@@ -154,6 +154,53 @@ def corners_db(f_hz, vdb) -> tuple[float, float, float]:
     return float(vdb[i]), low, high
 
 
+#: Element names of :func:`netlist` for the Monte Carlo's parts: (field, stage index) -> name.
+_ELEMENT = {"c_couple_f": "cc{k}", "r_bias_ohm": "rb{k}", "r_feedback_ohm": "rf{k}",
+            "c_feedback_f": "cf{k}", "r_gain_ohm": "rg{k}", "c_gain_f": "cg{k}",
+            "r_in_ohm": "rin{k}", "c_out_f": "cout", "r_top_ohm": "rtop",
+            "r_bottom_ohm": "rbot", "c_bypass_f": "cbyp"}
+
+
+def monte_carlo_deck(circuit: Circuit, parts, values, f_start_hz: float, f_stop_hz: float,
+                     per_decade: int = 40) -> str:
+    """One ``.ac`` per trial in a ``.control`` block (test decks only): ``alter`` sets every
+    varied part to its drawn value (``values[trial, i]`` for ``parts[i]``, as
+    ``montecarlo.Part``), a gain-bandwidth through the pole capacitor of its unit's macro
+    model (``C = A0 / (2 pi GBW 1 kohm)``), then the response is printed."""
+    lines, out = netlist(circuit, signal_ac=1.0, supply_ac=0.0)
+    vdb = "vdb" + out[1:]
+    first_stage_unit = 2 if circuit.bias is not None and circuit.bias.buffered else 1
+    a0 = circuit.opamp.a0
+    control = [".control"]
+    for row in values:
+        for part, value in zip(parts, row, strict=True):
+            if part.field == "gbw_hz":
+                unit = first_stage_unit + part.index
+                control.append(f"alter c.xu{unit}.cp = {_n(a0 / (2 * math.pi * value * 1e3))}")
+            else:
+                name = _ELEMENT[part.field].format(k=(part.index or 0) + 1)
+                control.append(f"alter {name} = {_n(value)}")
+        control += [f"ac dec {per_decade} {_n(f_start_hz)} {_n(f_stop_hz)}", f"print {vdb}"]
+    control += ["quit", ".endc", ".end", ""]
+    return "\n".join(["gainchain Monte Carlo cross-check", *lines, *control])
+
+
+def parse_tables(stdout: str, columns: int) -> list:
+    """Every ``print`` table of a run, in order (a table restarts at index 0)."""
+    tables: list = []
+    for line in stdout.splitlines():
+        parts = line.split()
+        if len(parts) == columns + 1 and parts[0].isdigit():
+            try:
+                row = [float(v) for v in parts[1:]]
+            except ValueError:
+                continue
+            if parts[0] == "0":
+                tables.append([])
+            tables[-1].append(row)
+    return tables
+
+
 def run(deck: str, timeout_s: float = 120.0) -> str:
     """Run ``ngspice -b`` on the deck in a fresh folder (argument list, no shell); stdout."""
     with tempfile.TemporaryDirectory() as tmp:

@@ -92,11 +92,17 @@ def test_random_valid_targets(module_client, strict_json, req):
     min_stable = circuit["opamp"]["min_stable_gain"]
     if min(noise_gains) < min_stable:
         expected.append("noise_gain")
+    # Issue 9: the predicted yield under the echoed tolerances counts too.
+    if body["yield"]["predicted"] < t["min_yield"]:
+        expected.append("yield")
     assert [s["quantity"] for s in body["shortfalls"]] == expected
     assert body["status"] == ("meets_target" if not expected else "target_not_met")
     for s in body["shortfalls"]:
         if s["quantity"] == "noise_gain":
             assert s["target"] == min_stable and s["achieved"] == min(noise_gains)
+            continue
+        if s["quantity"] == "yield":
+            assert s["target"] == t["min_yield"] and s["achieved"] == body["yield"]["predicted"]
             continue
         assert s["target"] == t[s["quantity"]]
         assert s["achieved"] == (f_low if s["quantity"] == "f_low_hz" else ab[s["quantity"]])

@@ -36,7 +36,9 @@ import numpy as np
 
 from service.engine.solver import chain
 from service.engine.solver import corners
+from service.engine.judge import yield_estimate
 from service.engine.synthesis import band_limit
+from service.engine.synthesis import centring
 from service.engine.synthesis import eseries
 from service.engine.synthesis import ideal
 from service.engine.judge.analysis import (
@@ -81,6 +83,7 @@ class Synthesis:
     circuit: Circuit
     as_built: AsBuilt
     bias_reason: str | None
+    yield_estimate: object = None  # judge.yield_estimate.YieldEstimate of the final circuit
 
 
 @lru_cache(maxsize=16)
@@ -208,8 +211,13 @@ def _midrail_target_v(req: DesignRequest) -> float:
     return 0.5 * ((req.supply.v_pos - op.swing_to_pos_v) + op.swing_to_neg_v)
 
 
-def synthesize(req: DesignRequest, n: int) -> Synthesis:
-    """The complete circuit for ``n`` stages (deterministic: a pure function of its inputs)."""
+def synthesize(req: DesignRequest, n: int, *, aim: centring.Aim | None = None) -> Synthesis:
+    """The complete circuit for ``n`` stages (deterministic: a pure function of its inputs),
+    centred for the target's ``min_yield`` (:mod:`service.engine.synthesis.centring`: the
+    passes below size for ``aim``'s corners)."""
+    if aim is None:
+        return centring.centre(req, lambda a: synthesize(req, n, aim=a))
+    req = centring.aimed_request(req, aim)
     comp = req.components
     topo = req.topology
     target = req.target
@@ -248,7 +256,7 @@ def synthesize(req: DesignRequest, n: int) -> Synthesis:
     _, pairs, circuit, result = best
     if bias is not None and not bias.buffered:
         circuit, result, bias_reason = _settle_bias(req, pairs, circuit, result, bias_reason)
-    circuit = band_limit.limit_band(req, circuit)
+    circuit = band_limit.limit_band(req, circuit, f_high_aim_hz=aim.f_high_hz)
     return Synthesis(circuit=circuit, as_built=as_built(circuit), bias_reason=bias_reason)
 
 
@@ -583,7 +591,7 @@ def design(req: DesignRequest, *, check_deadline=None) -> Design:
         for n in stage_counts_to_try(req):
             check_deadline("design")
             tried[n] = synthesize(req, n)
-            if status_of(tried[n].as_built, req.target, tried[n].circuit)[0] == "meets_target":
+            if _status(req, tried[n])[0] == "meets_target":
                 first_met = first_met or tried[n]
                 if band_limit.holds_against_gbw(req, tried[n].circuit):
                     syn = tried[n]
@@ -604,8 +612,14 @@ def design(req: DesignRequest, *, check_deadline=None) -> Design:
     n = syn.circuit.n_stages
     ic = ideal.ideal_cascade(req.target.gain, req.target.f_low_hz, req.opamp.gbw_hz, n,
                              req.topology)
-    status, shortfalls = status_of(syn.as_built, req.target, syn.circuit)
+    status, shortfalls = _status(req, syn)
     return Design(request=req, synthesis=syn, ideal=ic, status=status, shortfalls=shortfalls)
+
+
+def _status(req: DesignRequest, syn: Synthesis) -> tuple[str, list]:
+    """``status_of`` plus the predicted yield against ``min_yield`` (shortfall ``yield``)."""
+    status, shortfalls = status_of(syn.as_built, req.target, syn.circuit)
+    return yield_estimate.with_yield(status, shortfalls, syn.yield_estimate)
 
 
 def best_by_f_high(tried: dict) -> Synthesis:
