@@ -133,12 +133,26 @@ class SignalSchema(Schema):
         return _split(Signal, data, "signal")
 
 
+class ImpedanceField(fields.Field):
+    """``"auto"`` or a number of ohms, 10 .. 1e7 (booleans and numeric strings refused)."""
+
+    default_error_messages = {"invalid": 'Give "auto" or a number of ohms from 10 to 1e7.'}
+
+    def _deserialize(self, value, attr, data, **kwargs):
+        if value == "auto":
+            return value
+        if isinstance(value, bool) or not isinstance(value, (int, float)) \
+                or not math.isfinite(value) or not 10 <= value <= 1e7:
+            raise self.make_error("invalid")
+        return float(value)
+
+
 class ComponentsSchema(Schema):
     resistor_series = fields.String(load_default="E96", validate=OneOf(RESISTOR_SERIES))
     capacitor_series = fields.String(load_default="E12", validate=OneOf(CAPACITOR_SERIES))
     resistor_tolerance_pct = StrictFloat(load_default=1.0, validate=Range(min=0, max=50))
     capacitor_tolerance_pct = StrictFloat(load_default=10.0, validate=Range(min=0, max=80))
-    impedance_ohm = StrictFloat(load_default=10_000.0, validate=Range(min=10, max=1e7))
+    impedance_ohm = ImpedanceField(load_default="auto")
     c0g_tolerance_pct = StrictFloat(load_default=5.0, validate=Range(min=0, max=80))
     electrolytic_tolerance_pct = StrictFloat(load_default=20.0, validate=Range(min=0, max=80))
     gbw_tolerance_pct = StrictFloat(load_default=0.0, validate=Range(min=0, max=90))

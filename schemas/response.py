@@ -180,6 +180,20 @@ class YieldBlockSchema(Schema):
     figures = fields.Dict(keys=fields.String(), values=fields.Nested(YieldFigureSchema))
 
 
+class ComponentsOutSchema(Schema):
+    """The request's components as used: the impedance level resolved, and why."""
+
+    resistor_series = fields.String()
+    capacitor_series = fields.String()
+    resistor_tolerance_pct = fields.Float()
+    capacitor_tolerance_pct = fields.Float()
+    impedance_ohm = fields.Float()
+    c0g_tolerance_pct = fields.Float()
+    electrolytic_tolerance_pct = fields.Float()
+    gbw_tolerance_pct = fields.Float()
+    impedance_reason = fields.String()
+
+
 class _AnalysesBlocks(Schema):
     noise = fields.Nested(NoiseBlockSchema)
     supply_rejection = fields.Nested(SupplyRejectionBlockSchema, allow_none=True)
@@ -199,6 +213,7 @@ class DesignResponseSchema(_AnalysesBlocks):
     headroom = fields.Nested(HeadroomSchema)
     bias = fields.Nested(BiasReportSchema)
     tradeoff = fields.Nested(TradeoffSchema)
+    components = fields.Nested(ComponentsOutSchema)
     tolerances = fields.Nested(TolerancesOutSchema)
     yield_ = fields.Nested(YieldBlockSchema, data_key="yield", attribute="yield")
     warnings = fields.List(fields.Nested(WarningSchema))

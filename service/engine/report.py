@@ -7,6 +7,7 @@ them as null.
 from __future__ import annotations
 
 import math
+from dataclasses import asdict
 
 from service.engine.judge import analysis, yield_estimate
 from service.engine.synthesis import ideal
@@ -155,6 +156,14 @@ def _part_count(req, n: int, units: int) -> int:
     return passives + math.ceil(units / req.opamp.channels_per_package)
 
 
+def components_block(components, impedance_reason: str | None) -> dict:
+    """The resolved ``components`` (impedance level as chosen) and why that level."""
+    out = dict(asdict(components))
+    out["impedance_reason"] = impedance_reason or (
+        f"Impedance level {components.impedance_ohm:g} ohm, as requested.")
+    return out
+
+
 def design_block(design: Design) -> dict:
     """The complete design response (without the optional analyses blocks)."""
     req = design.request
@@ -177,6 +186,8 @@ def design_block(design: Design) -> dict:
         "headroom": body["headroom"],
         "bias": body["bias"],
         "tradeoff": tradeoff_block(design),
+        "components": components_block(syn.components or req.components,
+                                       syn.impedance_reason),
         "tolerances": tolerances_of(req.components).to_dict(),
         "yield": body["yield"],
         "warnings": body["warnings"],

@@ -232,7 +232,8 @@ class Target:
 
 @dataclass(frozen=True)
 class Components:
-    """Component-series choices of a design request, and each part kind's tolerance
+    """Component-series choices of a design request, the impedance level (ohm, or "auto"),
+    and each part kind's tolerance
     (common practice: resistors 1 %, C0G/NP0 5 %, X7R/X5R 10 %, aluminium electrolytics
     20 %; the op-amp's gain-bandwidth spread 0 unless the user gives it)."""
 
@@ -240,7 +241,7 @@ class Components:
     capacitor_series: str = "E12"
     resistor_tolerance_pct: float = 1.0
     capacitor_tolerance_pct: float = 10.0
-    impedance_ohm: float = 10_000.0
+    impedance_ohm: float | str = "auto"  # "auto": chosen per design (synthesis.impedance)
     c0g_tolerance_pct: float = 5.0
     electrolytic_tolerance_pct: float = 20.0
     gbw_tolerance_pct: float = 0.0

@@ -39,6 +39,7 @@ from service.engine.solver import corners
 from service.engine.judge import yield_estimate
 from service.engine.synthesis import band_limit
 from service.engine.synthesis import centring
+from service.engine.synthesis import impedance
 from service.engine.synthesis import eseries
 from service.engine.synthesis import ideal
 from service.engine.judge.analysis import (
@@ -84,6 +85,8 @@ class Synthesis:
     as_built: AsBuilt
     bias_reason: str | None
     yield_estimate: object = None  # judge.yield_estimate.YieldEstimate of the final circuit
+    components: object = None  # the request's Components, impedance level resolved
+    impedance_reason: str | None = None  # why the level, when it was chosen ("auto")
 
 
 @lru_cache(maxsize=16)
@@ -216,7 +219,9 @@ def synthesize(req: DesignRequest, n: int, *, aim: centring.Aim | None = None) -
     centred for the target's ``min_yield`` (:mod:`service.engine.synthesis.centring`: the
     passes below size for ``aim``'s corners)."""
     if aim is None:
-        return centring.centre(req, lambda a: synthesize(req, n, aim=a))
+        req, why = impedance.resolve(req, lambda r: synthesize(r, n, aim=centring.first_aim(r)))
+        syn = centring.centre(req, lambda a: synthesize(req, n, aim=a))
+        return replace(syn, components=req.components, impedance_reason=why)
     req = centring.aimed_request(req, aim)
     comp = req.components
     topo = req.topology
