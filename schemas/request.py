@@ -218,6 +218,7 @@ class DesignRequestSchema(Schema):
     stages = StagesField(load_default=None)
     components = fields.Nested(ComponentsSchema, load_default=lambda: (Components(), {}))
     strict = StrictBoolean(load_default=False)
+    gain_split = fields.String(load_default="equal", validate=OneOf(("equal", "low_noise")))
     tolerance = fields.Nested(ToleranceOptionsSchema)
     response = fields.Nested(ResponseOptionsSchema)
     temperature_k = StrictFloat(load_default=300.0, validate=Range(min=1, max=1000))

@@ -47,7 +47,8 @@ def load_design_request(body, catalog=None) -> tuple[DesignRequest, dict]:
     req = DesignRequest(target=data["target"], supply=data["supply"][0], opamp=opamp,
                         signal=data["signal"][0], topology=data["topology"],
                         stages=data["stages"], components=data["components"][0],
-                        strict=data["strict"], name=data.get("name"), limits=limits_of(data))
+                        strict=data["strict"], name=data.get("name"), limits=limits_of(data),
+                        gain_split=data["gain_split"])
     options = _options(data, tolerances_of(req.components))
     return req, options
 

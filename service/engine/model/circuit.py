@@ -290,3 +290,4 @@ class DesignRequest:
     strict: bool = False
     name: str | None = None
     limits: Limits = field(default_factory=Limits)
+    gain_split: str = "equal"  # "equal" | "low_noise" (synthesis.gain_split)

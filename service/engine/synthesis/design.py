@@ -41,6 +41,7 @@ from service.engine.synthesis import band_limit
 from service.engine.synthesis import centring
 from service.engine.synthesis import impedance
 from service.engine.synthesis import eseries
+from service.engine.synthesis import gain_split
 from service.engine.synthesis import ideal
 from service.engine.judge.analysis import (
     AsBuilt,
@@ -149,30 +150,38 @@ def gain_candidates(series: str, gain: float, topology: str, impedance_ohm: floa
 def choose_pairs(series: str, gain: float, n: int, topology: str, impedance_ohm: float,
                  r_source_ohm: float, correction: float = 1.0,
                  previous: list | None = None,
-                 min_noise_gain: float = 1.0) -> list[tuple[float, float]]:
+                 min_noise_gain: float = 1.0,
+                 first_gain: float | None = None) -> list[tuple[float, float]]:
     """Feedback pairs for n stages whose gain *product* is nearest ``gain / correction``.
 
     Stages 1..n-2 take the pair nearest ``g = gain**(1/n)``; the last two stages search all
     combinations of their candidate lists (E96 ratios are quantised in ~2.4 % steps, their
     pairwise products far more finely), so the product lands within a few 0.01 % of the
     need. ``correction`` is the measured as-built / ideal-product ratio of a previous pass.
+    ``first_gain`` (a ``low_noise`` split, :mod:`service.engine.synthesis.gain_split`):
+    stage 1 takes the pair nearest it and the others share the rest the same way.
     """
     g = gain ** (1.0 / n)
+    targets = [g] * n
+    alone = max(n - 2, 0)
+    if first_gain is not None and n >= 2:
+        targets = [first_gain] + [(gain / first_gain) ** (1.0 / (n - 1))] * (n - 1)
+        alone = max(n - 2, 1)
     extra = [r_source_ohm if (topology == INVERTING and k == 0) else 0.0 for k in range(n)]
     pairs = []
-    for k in range(max(n - 2, 0)):
+    for k in range(alone):
         if previous is not None:
             pairs.append(previous[k])
             continue
-        _, rf, r2 = gain_candidates(series, g, topology, impedance_ohm, extra[k],
+        _, rf, r2 = gain_candidates(series, targets[k], topology, impedance_ohm, extra[k],
                                     min_noise_gain=min_noise_gain)
         pairs.append((float(rf[0]), float(r2[0])))
     done = math.prod(_pair_gain(p, topology, r_source_ohm, k) for k, p in enumerate(pairs))
     need = gain / correction / done
-    if n == 1:
-        ga, rfa, r2a = gain_candidates(series, need, topology, impedance_ohm, extra[0],
+    if n - alone == 1:  # one stage left (n = 1, or n = 2 with a first-stage gain)
+        ga, rfa, r2a = gain_candidates(series, need, topology, impedance_ohm, extra[n - 1],
                                          min_noise_gain=min_noise_gain)
-        return [(float(rfa[0]), float(r2a[0]))]
+        return pairs + [(float(rfa[0]), float(r2a[0]))]
     rest = need ** 0.5
     ga, rfa, r2a = gain_candidates(series, rest, topology, impedance_ohm, extra[n - 2],
                                      min_noise_gain=min_noise_gain)
@@ -229,15 +238,16 @@ def synthesize(req: DesignRequest, n: int, *, aim: centring.Aim | None = None) -
     rs = req.signal.source_impedance_ohm
     ac = target.f_low_hz > 0
     stable = req.opamp.min_stable_gain
+    first = gain_split.first_stage_gain(req, n)
     pairs = choose_pairs(comp.resistor_series, target.gain, n, topo, comp.impedance_ohm, rs,
-                         min_noise_gain=stable)
+                         min_noise_gain=stable, first_gain=first)
     bias, bias_reason = _initial_bias(req, n)
     # One cheap solve predicts the losses (source divider, finite A0) before any capacitor
     # is sized, so the loop below usually settles in one pass.
     ideal_product = math.prod(_pair_gain(p, topo, rs, k) for k, p in enumerate(pairs))
     pairs = choose_pairs(comp.resistor_series, target.gain, n, topo, comp.impedance_ohm, rs,
                          correction=_midband_estimate(req, pairs) / ideal_product,
-                         min_noise_gain=stable)
+                         min_noise_gain=stable, first_gain=first)
     tried: set = set()
     best = None  # (gain error, pairs, circuit, result): the best pass is kept
     for _ in range(GAIN_PASSES):
@@ -252,7 +262,7 @@ def synthesize(req: DesignRequest, n: int, *, aim: centring.Aim | None = None) -
         ideal_product = math.prod(_pair_gain(p, topo, rs, k) for k, p in enumerate(pairs))
         new = choose_pairs(comp.resistor_series, target.gain, n, topo, comp.impedance_ohm, rs,
                            correction=result.gain / ideal_product, previous=pairs,
-                           min_noise_gain=stable)
+                           min_noise_gain=stable, first_gain=first)
         new_product = math.prod(_pair_gain(p, topo, rs, k) for k, p in enumerate(new))
         predicted = abs(math.log(target.gain / (result.gain * new_product / ideal_product)))
         if tuple(new) in tried or predicted >= err - GAIN_PASS_MIN_IMPROVEMENT:
