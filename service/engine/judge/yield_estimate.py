@@ -28,6 +28,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 import numpy as np
 
@@ -78,10 +79,13 @@ class YieldEstimate:
         return float(np.std(col)) if col.size else None
 
 
+@lru_cache(maxsize=32)
 def _uniform_draws(parts_count: int) -> np.ndarray:
-    """The fixed ``(SAMPLES, parts)`` uniform draws on [-1, 1]."""
+    """The fixed ``(SAMPLES, parts)`` uniform draws on [-1, 1] (cached, read-only)."""
     rng = np.random.default_rng(SEED)
-    return rng.uniform(-1.0, 1.0, size=(SAMPLES, parts_count))
+    draws = rng.uniform(-1.0, 1.0, size=(SAMPLES, parts_count))
+    draws.flags.writeable = False
+    return draws
 
 
 def limits_of(target: Target) -> dict:

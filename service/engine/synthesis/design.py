@@ -228,8 +228,16 @@ def synthesize(req: DesignRequest, n: int, *, aim: centring.Aim | None = None) -
     centred for the target's ``min_yield`` (:mod:`service.engine.synthesis.centring`: the
     passes below size for ``aim``'s corners)."""
     if aim is None:
-        req, why = impedance.resolve(req, lambda r: synthesize(r, n, aim=centring.first_aim(r)))
-        syn = centring.centre(req, lambda a: synthesize(req, n, aim=a))
+        passes: dict = {}  # (request, aim) -> Synthesis: the level search and the centring
+                           # share their first passes
+
+        def at(r: DesignRequest, a: centring.Aim) -> Synthesis:
+            if (r, a) not in passes:
+                passes[(r, a)] = synthesize(r, n, aim=a)
+            return passes[(r, a)]
+
+        req, why = impedance.resolve(req, lambda r: at(r, centring.first_aim(r)))
+        syn = centring.centre(req, lambda a: at(req, a))
         return replace(syn, components=req.components, impedance_reason=why)
     req = centring.aimed_request(req, aim)
     comp = req.components
