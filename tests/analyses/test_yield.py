@@ -19,8 +19,8 @@ import pytest
 
 from analyses import spice_deck
 from service.engine.judge import montecarlo as mc
-from service.engine.judge.analysis import as_built
 from service.engine.judge import yield_estimate as ye
+from service.engine.judge.analysis import as_built
 from service.engine.model import parts as parts_mod
 from service.engine.model.catalog import BUILTIN_OPAMPS
 from service.engine.model.parts import Tolerances, tolerances_of

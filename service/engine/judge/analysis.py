@@ -284,7 +284,8 @@ def headroom(circuit: Circuit, ab: AsBuilt, input_peak_v: float,
 
 def status_of(ab: AsBuilt, target: Target, circuit: Circuit | None = None) -> tuple[str, list]:
     """``meets_target`` when f_low <= target, f_high >= target and the gain is in
-    tolerance, the band stays inside ``f_low_min_hz`` / ``f_high_max_hz`` when given, and (given the circuit) every op-amp unit runs at a noise gain it is stable
+    tolerance, the band stays inside ``f_low_min_hz`` / ``f_high_max_hz`` when given, and
+    (given the circuit) every op-amp unit runs at a noise gain it is stable
     at: a circuit that may oscillate does not meet any target (shortfall ``noise_gain``)."""
     shortfalls = []
     f_low = 0.0 if math.isnan(ab.f_low_hz) else ab.f_low_hz

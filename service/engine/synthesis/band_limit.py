@@ -4,7 +4,8 @@ cascade's upper corner, so the op-amp's gain-bandwidth (and its spread) barely m
 With ``Cf`` across ``Rf`` the feedback impedance is ``Zf = Rf / (1 + s Rf Cf)``: an inverting
 stage ``-Zf/Zi`` gets one pole at ``fp = 1 / (2 pi Rf Cf)``; a non-inverting one
 ``1 + Zf/Zg`` a pole at ``fp`` and a zero at about ``(1 + Rf/Rg) fp``, where its gain has
-fallen to unity (textbook op-amp stage forms, common practice). ``n`` equal real poles at ``fp`` put the cascade's
+fallen to unity (textbook op-amp stage forms, common practice). ``n`` equal real poles at
+``fp`` put the cascade's
 -3 dB corner at ``fp sqrt(2**(1/n) - 1)`` (the shrinkage rule of
 :func:`service.engine.synthesis.ideal.shrinkage`).
 

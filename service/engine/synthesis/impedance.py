@@ -17,7 +17,8 @@ falls (at most ``limits.max_capacitor_f``), and resistors must stay within
 without yield centring), their parts checked against those limits, and the output noise
 integrated over the target band (:func:`service.engine.judge.noise.rms_over`); a descent
 over the ladder from 10 kohm finds the feasible level with the lowest noise (ties: nearer
-10 kohm). When the descent ends on a level that breaks a limit, every level is evaluated
+10 kohm), skipping levels whose decade window leaves the resistor limits. When the descent
+ends on a level that breaks a limit, every level is evaluated
 and the one that breaks the limits by the least (the sum of ``|ln(value / limit)|``) is
 taken; the reason says so.
 """
@@ -126,32 +127,41 @@ def choose(req: DesignRequest, build) -> Choice:
     def key(r):
         return (round(r[3], 9), round(r[2], 15), abs(math.log(r[0] / CLASSIC_OHM)))
 
+    # Levels whose decade window (the level resistor ranges over level/sqrt(10) ..
+    # level*sqrt(10)) leaves the resistor limits are not tried, unless no level is left.
+    window = math.sqrt(10.0)
+    lim = req.limits
+    allowed = [j for j, v in enumerate(LEVELS_OHM)
+               if lim.min_resistor_ohm <= v / window and v * window <= lim.max_resistor_ohm]
+    first, last = (allowed[0], allowed[-1]) if allowed else (0, len(LEVELS_OHM) - 1)
     # Descent over the ladder from the classic level: each step moves to the neighbour that
-    # breaks the limits by less, or keeps them with less noise; it ends where neither neighbour is
-    # better (noise against level has one minimum between the resistor-noise side and the
-    # limits' side; the tests compare with a sweep of every level).
-    i = LEVELS_OHM.index(CLASSIC_OHM)
+    # breaks the limits by less, or keeps them with less noise; it ends where neither
+    # neighbour is better (noise against level has one minimum between the resistor-noise
+    # side and the limits' side; the tests compare with a sweep of every level).
+    i = min(max(LEVELS_OHM.index(CLASSIC_OHM), first), last)
     while True:
-        near = [j for j in (i - 1, i + 1) if 0 <= j < len(LEVELS_OHM)]
+        near = [j for j in (i - 1, i + 1) if first <= j <= last]
+        if not near:
+            break
         j = min(near, key=lambda j: key(row(j)))
         if key(row(j)) >= key(row(i)):
             break
         i = j
     if row(i)[1]:  # nothing feasible on the way: look at every level (rare, and slower)
-        i = min(range(len(LEVELS_OHM)), key=lambda j: key(row(j)))
+        i = min(range(first, last + 1), key=lambda j: key(row(j)))
     level, broken, noise, _ = row(i)
     feasible = not broken
     band = f"{lo:.3g}..{hi:.3g} Hz"
     if feasible:
         reason = (f"Impedance level {level:g} ohm: the lowest output noise "
-                  f"({noise:.3g} V rms over {band}) of the levels {LEVELS_OHM[0]:g}.."
-                  f"{LEVELS_OHM[-1]:g} ohm that keep every resistor within "
+                  f"({noise:.3g} V rms over {band}) of the levels {LEVELS_OHM[first]:g}.."
+                  f"{LEVELS_OHM[last]:g} ohm that keep every resistor within "
                   f"{req.limits.min_resistor_ohm:g}..{req.limits.max_resistor_ohm:g} ohm, every "
                   f"capacitor at or below {req.limits.max_capacitor_f:g} F and every op-amp "
                   f"output loaded by at least {MIN_OUTPUT_LOAD_OHM:g} ohm.")
     else:
-        reason = (f"Impedance level {level:g} ohm: no level of {LEVELS_OHM[0]:g}.."
-                  f"{LEVELS_OHM[-1]:g} ohm keeps every part within the limits; this one breaks "
+        reason = (f"Impedance level {level:g} ohm: no level of {LEVELS_OHM[first]:g}.."
+                  f"{LEVELS_OHM[last]:g} ohm keeps every part within the limits; this one breaks "
                   f"them least ({'; '.join(broken)}).")
     return Choice(level_ohm=level, noise_v_rms=noise, violations=broken, reason=reason)
 
