@@ -10,7 +10,7 @@ import math
 from dataclasses import asdict
 
 from service.engine.judge import analysis, yield_estimate
-from service.engine.synthesis import ideal
+from service.engine.synthesis import band_limit, ideal
 from service.engine.synthesis.design import Design
 from service.engine.model.circuit import NON_INVERTING, Circuit, Target
 from service.engine.model.parts import Tolerances, tolerances_of
@@ -97,6 +97,14 @@ def analysis_block(circuit: Circuit, *, target: Target | None, input_peak_v: flo
                               f"{ab.f_high_hz / target.f_high_hz:.3g} times the target's "
                               f"{target.f_high_hz:.4g} Hz: noise bandwidth is wasted; give "
                               "target.f_high_max_hz to band-limit the stages."))
+    if target is not None and target.f_high_max_hz is not None:
+        move = band_limit.gbw_corner_shift(circuit, band_limit.GBW_SPREAD)
+        if not move < band_limit.GBW_CORNER_MOVE:
+            warnings.append(_warn(
+                "upper_corner_follows_gbw",
+                f"A {band_limit.GBW_SPREAD:.0%} change of the op-amp's gain-bandwidth moves "
+                f"the upper corner by {move:.1%}: the op-amp, not the band-limiting "
+                "capacitors, sets it (more stages, or a faster op-amp, would fix that)."))
     if target is not None:
         status, shortfalls = analysis.status_of(ab, target, circuit)
         if yield_est is None:

@@ -116,3 +116,13 @@ def test_c_feedback_pole_of_one_inverting_stage_is_the_textbook_rc():
                   opamp=replace(c.opamp, gbw_hz=1e12, a0_db=240.0), source_impedance_ohm=0.0)
     assert as_built(one).f_high_hz == pytest.approx(
         1 / (2 * math.pi * st.r_feedback_ohm * st.c_feedback_f), rel=1e-4)
+
+
+def test_warning_when_the_op_amp_still_sets_the_upper_corner(client, strict_json):
+    # One stage forced: 40 dB at 10 MHz leaves the op-amp's closed-loop pole (about 100 kHz)
+    # too close above the RC pole; the corner then follows the op-amp's gain-bandwidth.
+    body = dict(BAND_LIMITED["audio_ni_single"], stages=1)
+    d = strict_json(client.post("/v1/designs", json=body).data)
+    assert "upper_corner_follows_gbw" in [w["code"] for w in d["warnings"]]
+    auto = strict_json(client.post("/v1/designs", json=BAND_LIMITED["audio_ni_single"]).data)
+    assert "upper_corner_follows_gbw" not in [w["code"] for w in auto["warnings"]]

@@ -24,6 +24,13 @@ Steps for a stage count n (``synthesize``):
    the output swing window; VMID is buffered by a spare op-amp unit when a package has one
    (and the part is unity-gain stable), else the divider is bypassed, the bypass grown until
    the response is free of low-frequency peaking, and buffered as a last resort.
+4. **Band limit** (with ``f_high_max_hz``): feedback capacitors set the upper corner
+   (:mod:`service.engine.synthesis.band_limit`).
+
+Around these steps: an ``"auto"`` impedance level is chosen first
+(:mod:`service.engine.synthesis.impedance`), the gain may be split unequally
+(:mod:`service.engine.synthesis.gain_split`), and the passes are repeated for aimed corners
+until the predicted yield reaches ``min_yield`` (:mod:`service.engine.synthesis.centring`).
 """
 
 from __future__ import annotations
