@@ -177,6 +177,8 @@ class YieldBlockSchema(Schema):
     min_yield = OutFloat()
     method = fields.String()
     description = fields.String()
+    peaking_fraction = OutFloat(metadata={
+        "description": "builds whose shared bias node rings (0 with a stiff VMID)"})
     figures = fields.Dict(keys=fields.String(), values=fields.Nested(YieldFigureSchema))
 
 
