@@ -37,11 +37,13 @@ import hashlib
 import json
 import re
 import uuid
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 from exporters.values import eda_value, natural_key
+from service.engine.model import parts as parts_mod
 from service.engine.model.circuit import INVERTING, SINGLE, Circuit
 from service.engine.model.identity import design_id
+from service.engine.model.parts import Tolerances
 from service.engine.model.spares import spare_units
 
 SIZES = ("0603", "0805", "1206")
@@ -66,18 +68,18 @@ _HEADER = {2: "Connector_PinHeader_2.54mm:PinHeader_1x02_P2.54mm_Vertical",
 
 DECOUPLING_C_F = 100e-9  # per supply pin per package (common practice)
 BULK_C_F = 47e-6  # per rail at the power connector (common practice)
-#: Dielectric by value (common practice): C0G/NP0 up to 10 nF (stable, no voltage
-#: coefficient), X7R up to 1 uF, X5R up to 10 uF at ratings up to 25 V, electrolytic above.
-C0G_MAX_F = 10e-9
-X7R_MAX_F = 1e-6
-X5R_MAX_F = 10e-6
-X5R_MAX_RATING_V = 25.0
-#: Voltage rating >= DERATING x the DC voltage across the part (common practice: 1.5-2x).
-DERATING = 2.0
-CERAMIC_RATINGS_V = (10.0, 16.0, 25.0, 50.0, 100.0, 200.0)
-ELECTROLYTIC_RATINGS_V = (6.3, 10.0, 16.0, 25.0, 35.0, 50.0, 63.0, 100.0, 160.0, 250.0)
-ELECTROLYTIC_TOLERANCE = "20%"  # typical aluminium electrolytic tolerance (common practice)
-BIPOLAR_BELOW_V = 0.5
+#: Capacitor classes, ratings and tolerances come from the engine's one source of truth
+#: (:mod:`service.engine.model.parts`), which the Monte Carlo uses too; re-exported here.
+C0G_MAX_F = parts_mod.C0G_MAX_F
+X7R_MAX_F = parts_mod.X7R_MAX_F
+X5R_MAX_F = parts_mod.X5R_MAX_F
+X5R_MAX_RATING_V = parts_mod.X5R_MAX_RATING_V
+DERATING = parts_mod.DERATING
+CERAMIC_RATINGS_V = parts_mod.CERAMIC_RATINGS_V
+ELECTROLYTIC_RATINGS_V = parts_mod.ELECTROLYTIC_RATINGS_V
+BIPOLAR_BELOW_V = parts_mod.BIPOLAR_BELOW_V
+#: Board-level parts outside the circuit model (not in the signal path).
+_OFF_SIGNAL_PATH = ("decoupling", "bulk")
 
 #: Package pinouts (de facto industry standard, common practice): unit -> (+in, -in, out).
 PINOUTS = {
@@ -222,14 +224,6 @@ def _uuid(design: str, ref: str, unit: str) -> str:
     return str(uuid.uuid5(uuid.NAMESPACE_URL, f"gainchain:{design}/{ref}/{unit}"))
 
 
-def _rating(v_across: float, ratings) -> float:
-    need = DERATING * abs(v_across)
-    for rating in ratings:
-        if rating >= need:
-            return rating
-    raise ValueError(f"no standard voltage rating reaches {need:g} V")
-
-
 def _fmt_v(v: float) -> str:
     return f"{v:g}V"
 
@@ -240,11 +234,17 @@ def _cp_footprint(c_f: float, rating_v: float) -> str:
 
 
 def build_board(circuit: Circuit, *, name: str = "", size: str = DEFAULT_SIZE,
-                resistor_tolerance_pct: float = 1.0, capacitor_tolerance_pct: float = 10.0,
+                resistor_tolerance_pct: float | None = None,
+                capacitor_tolerance_pct: float | None = None,
+                tolerances: Tolerances | None = None,
                 opamp_symbols: dict | None = None) -> Board:
     """Lay out the complete board of ``circuit`` (see the module docstring for the rules).
 
     :param size: chip size of resistors and ceramic capacitors, one of ``SIZES``.
+    :param tolerances: every part kind's tolerance (default: the engine's defaults);
+        ``resistor_tolerance_pct`` / ``capacitor_tolerance_pct`` override its two fields.
+        Each capacitor's class and tolerance come from
+        :func:`service.engine.model.parts.capacitor_class`.
     :raise ValueError: unknown ``size`` or unsupported ``channels_per_package``.
     """
     if size not in SIZES:
@@ -281,12 +281,18 @@ def build_board(circuit: Circuit, *, name: str = "", size: str = DEFAULT_SIZE,
                 passives.append(("C", f"stage {k} coupling", st.c_couple_f, (x, f"M{k}")))
             passives.append(("R", f"stage {k} input", st.r_in_ohm, (f"M{k}", f"N{k}")))
             passives.append(("R", f"stage {k} feedback", st.r_feedback_ohm, (f"O{k}", f"N{k}")))
+            if st.c_feedback_f is not None:
+                passives.append(("C", f"stage {k} feedback (band limit)", st.c_feedback_f,
+                                 (f"O{k}", f"N{k}")))
         else:
             if st.c_couple_f is not None:
                 passives.append(("C", f"stage {k} coupling", st.c_couple_f, (x, f"P{k}")))
             if st.r_bias_ohm is not None:
                 passives.append(("R", f"stage {k} bias", st.r_bias_ohm, (f"P{k}", ref_node)))
             passives.append(("R", f"stage {k} feedback", st.r_feedback_ohm, (f"O{k}", f"N{k}")))
+            if st.c_feedback_f is not None:
+                passives.append(("C", f"stage {k} feedback (band limit)", st.c_feedback_f,
+                                 (f"O{k}", f"N{k}")))
             if st.c_gain_f is None:
                 passives.append(("R", f"stage {k} gain", st.r_gain_ohm, (f"N{k}", ref_node)))
             else:
@@ -362,8 +368,12 @@ def build_board(circuit: Circuit, *, name: str = "", size: str = DEFAULT_SIZE,
     did = tstamp_seed(circuit, name)
     counters = {"R": 0, "C": 0}
     parts: list[Part] = []
-    r_tol = f"{resistor_tolerance_pct:g}%"
-    c_tol = f"{capacitor_tolerance_pct:g}%"
+    tol = tolerances or Tolerances()
+    if resistor_tolerance_pct is not None:
+        tol = replace(tol, resistor_tolerance_pct=resistor_tolerance_pct)
+    if capacitor_tolerance_pct is not None:
+        tol = replace(tol, capacitor_tolerance_pct=capacitor_tolerance_pct)
+    r_tol = f"{tol.resistor_tolerance_pct:g}%"
     for prefix, role, value, (a, b) in passives:
         counters[prefix] += 1
         ref = f"{prefix}{counters[prefix]}"
@@ -377,31 +387,26 @@ def build_board(circuit: Circuit, *, name: str = "", size: str = DEFAULT_SIZE,
                               fields=(("Tolerance", r_tol),), tstamps=tstamps))
             continue
         v_across = dc_v[na] - dc_v[nb]
-        ceramic_rating = _rating(v_across, CERAMIC_RATINGS_V)
-        if value <= C0G_MAX_F:
-            dielectric, rating, tol = "C0G/NP0", ceramic_rating, c_tol
-        elif value <= X7R_MAX_F:
-            dielectric, rating, tol = "X7R", ceramic_rating, c_tol
-        elif value <= X5R_MAX_F and ceramic_rating <= X5R_MAX_RATING_V:
-            dielectric, rating, tol = "X5R", ceramic_rating, c_tol
-        else:
-            dielectric, rating, tol = None, _rating(v_across, ELECTROLYTIC_RATINGS_V), \
-                ELECTROLYTIC_TOLERANCE
-        fields = (("Tolerance", tol), ("Voltage", _fmt_v(rating)))
-        if dielectric is not None:
+        cls = parts_mod.capacitor_class(
+            value, v_across, signal_path=not role.endswith(_OFF_SIGNAL_PATH))
+        if cls.rating_v is None:
+            raise ValueError(f"no standard voltage rating reaches {DERATING * abs(v_across):g} V")
+        fields = (("Tolerance", f"{tol.pct(cls.kind):g}%"), ("Voltage", _fmt_v(cls.rating_v)))
+        if cls.kind != parts_mod.ELECTROLYTIC:
             parts.append(Part(ref=ref, value=eda_value(value), value_si=value,
                               footprint=_C_FOOTPRINT[size], lib="Device", symbol="C",
-                              description=f"Capacitor, ceramic {dielectric}", role=role,
+                              description=f"Capacitor, ceramic {cls.dielectric}", role=role,
                               pins=(Pin("1", na), Pin("2", nb)),
-                              fields=fields + (("Dielectric", dielectric),), tstamps=tstamps))
+                              fields=fields + (("Dielectric", cls.dielectric),),
+                              tstamps=tstamps))
             continue
-        fp = _cp_footprint(value, rating)
-        if abs(v_across) < BIPOLAR_BELOW_V:
+        fp = _cp_footprint(value, cls.rating_v)
+        if cls.bipolar:
             parts.append(Part(ref=ref, value=eda_value(value), value_si=value, footprint=fp,
                               lib="Device", symbol="C", electrolytic=True,
                               description="Capacitor, aluminium electrolytic, bipolar",
                               role=role, pins=(Pin("1", na), Pin("2", nb)),
-                              fields=fields + (("Dielectric", "Al electrolytic bipolar"),),
+                              fields=fields + (("Dielectric", cls.dielectric),),
                               tstamps=tstamps))
             continue
         plus, minus = (na, nb) if v_across > 0 else (nb, na)
@@ -409,7 +414,7 @@ def build_board(circuit: Circuit, *, name: str = "", size: str = DEFAULT_SIZE,
                           lib="Device", symbol="C_Polarized", electrolytic=True, polarised=True,
                           description="Capacitor, aluminium electrolytic, polarised",
                           role=role, pins=(Pin("1", plus), Pin("2", minus)),
-                          fields=fields + (("Dielectric", "Al electrolytic"),),
+                          fields=fields + (("Dielectric", cls.dielectric),),
                           tstamps=tstamps))
 
     opamp = circuit.opamp

@@ -20,6 +20,7 @@ from exporters.response import edges_from_report
 from exporters.spice import spice_deck
 from exporters.stock import PartsLibrary
 from service.engine.model.circuit import Circuit
+from service.engine.model.parts import Tolerances
 
 #: kind -> Content-Type of the download.
 MIME_TYPES = {
@@ -41,19 +42,26 @@ class ExportFile:
 
 def export(kind: str, circuit: Circuit, *, name: str | None = None, report: dict | None = None,
            size: str = DEFAULT_SIZE, date: dt.date | None = None,
-           resistor_tolerance_pct: float = 1.0,
-           capacitor_tolerance_pct: float = 10.0,
+           resistor_tolerance_pct: float | None = None,
+           capacitor_tolerance_pct: float | None = None,
+           tolerances: Tolerances | None = None,
            library: PartsLibrary | None = None) -> ExportFile:
     """Render ``circuit`` (and, when given, its design response ``report``) as ``kind``;
     the BOMs match their lines against ``library`` (stocked parts) when one is given.
+
+    ``tolerances`` (default: the design response's ``tolerances`` block when ``report``
+    carries one, else the engine defaults) sets the tolerance each BOM line states.
 
     :raise ValueError: unknown ``kind`` or ``size``.
     """
     if kind not in MIME_TYPES:
         raise ValueError(f"kind must be one of {', '.join(KINDS)}, got {kind!r}")
+    if tolerances is None and (report or {}).get("tolerances"):
+        tolerances = Tolerances(**report["tolerances"])
     board = build_board(circuit, name=name or "", size=size,
                         resistor_tolerance_pct=resistor_tolerance_pct,
-                        capacitor_tolerance_pct=capacitor_tolerance_pct)
+                        capacitor_tolerance_pct=capacitor_tolerance_pct,
+                        tolerances=tolerances)
     date_text = None if date is None else date.isoformat()
     if kind == "bom.csv":
         data = bom_csv(board, library).encode("utf-8")

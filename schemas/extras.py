@@ -21,14 +21,16 @@ F_MAX_HZ = 1e10
 
 
 class ToleranceOptionsSchema(Schema):
-    """``tolerance``: Monte Carlo options. Passive tolerances default to the design request's
-    ``components`` (the caller fills them in); /v1/analyses requires them."""
+    """``tolerance``: Monte Carlo options. Every tolerance not given here is the request's
+    ``tolerances`` (a design's: its ``components``; /v1/analyses: its ``tolerances`` block)."""
 
     trials = StrictInteger(load_default=2000, validate=Range(min=1, max=MAX_TRIALS))
     seed = StrictInteger(load_default=1, validate=Range(min=0, max=2**63 - 1))
     resistor_tolerance_pct = StrictFloat(validate=Range(min=0, max=50))
+    c0g_tolerance_pct = StrictFloat(validate=Range(min=0, max=80))
     capacitor_tolerance_pct = StrictFloat(validate=Range(min=0, max=80))
-    gbw_tolerance_pct = StrictFloat(load_default=0.0, validate=Range(min=0, max=90))
+    electrolytic_tolerance_pct = StrictFloat(validate=Range(min=0, max=80))
+    gbw_tolerance_pct = StrictFloat(validate=Range(min=0, max=90))
 
 
 class ResponseOptionsSchema(Schema):
@@ -128,6 +130,8 @@ class ToleranceBlockSchema(Schema):
     seed = fields.Integer()
     resistor_tolerance_pct = OutFloat()
     capacitor_tolerance_pct = OutFloat()
+    c0g_tolerance_pct = OutFloat()
+    electrolytic_tolerance_pct = OutFloat()
     gbw_tolerance_pct = OutFloat()
     distribution = fields.String()
     model = fields.Nested(McModelSchema)

@@ -13,6 +13,7 @@ from schemas.fields import StrictBoolean, StrictFloat, StrictInteger
 from schemas.opamp import OpAmpField
 from service.engine.model.circuit import TOPOLOGIES, Components, Limits, Signal, Target
 from service.engine.model.eseries import CAPACITOR_SERIES, RESISTOR_SERIES
+from service.engine.model.parts import Tolerances
 from service.engine.synthesis.ideal import MAX_STAGES
 
 #: Agreement asked of ``gain`` and ``gain_db`` when both are given (relative, on the ratio).
@@ -28,6 +29,9 @@ class TargetSchema(Schema):
     f_high_hz = StrictFloat(required=True, validate=F_RANGE)
     gain_tolerance_db = StrictFloat(load_default=0.5, validate=Range(min=0, max=60,
                                                                      min_inclusive=False))
+    f_high_max_hz = StrictFloat(load_default=None, allow_none=True, validate=F_RANGE)
+    f_low_min_hz = StrictFloat(load_default=None, allow_none=True, validate=F_RANGE)
+    min_yield = StrictFloat(load_default=0.9, validate=Range(min=0, max=1, min_inclusive=False))
 
     @validates_schema
     def _consistent(self, data, **kwargs):
@@ -46,6 +50,13 @@ class TargetSchema(Schema):
                                   "f_low_hz")
         if low is not None and 0 < low < 1e-3:
             raise ValidationError("f_low_hz must be 0 (DC coupled) or at least 1 mHz", "f_low_hz")
+        high_max, low_min = data.get("f_high_max_hz"), data.get("f_low_min_hz")
+        if high_max is not None and high is not None and not high_max > high:
+            raise ValidationError(f"f_high_max_hz ({high_max:g}) must be above f_high_hz "
+                                  f"({high:g})", "f_high_max_hz")
+        if low_min is not None and low is not None and not low_min < low:
+            raise ValidationError(f"f_low_min_hz ({low_min:g}) must be below f_low_hz "
+                                  f"({low:g})", "f_low_min_hz")
 
     @post_load
     def _make(self, data, **kwargs) -> Target:
@@ -55,7 +66,9 @@ class TargetSchema(Schema):
             gain_db = 20.0 * math.log10(gain)
         return Target.from_gain(gain=gain, gain_db=gain_db, f_low_hz=data["f_low_hz"],
                                 f_high_hz=data["f_high_hz"],
-                                gain_tolerance_db=data["gain_tolerance_db"])
+                                gain_tolerance_db=data["gain_tolerance_db"],
+                                f_high_max_hz=data["f_high_max_hz"],
+                                f_low_min_hz=data["f_low_min_hz"], min_yield=data["min_yield"])
 
 
 #: Request fields that set a limit, by the block they sit in (the response echoes them all
@@ -92,6 +105,21 @@ class LimitsSchema(Schema):
         return Limits(**data)
 
 
+class TolerancesSchema(Schema):
+    """The ``tolerances`` block: echoed by every design, accepted by /v1/analyses (each part
+    kind's tolerance in percent; defaults as in a design request's ``components``)."""
+
+    resistor_tolerance_pct = StrictFloat(load_default=1.0, validate=Range(min=0, max=50))
+    c0g_tolerance_pct = StrictFloat(load_default=5.0, validate=Range(min=0, max=80))
+    capacitor_tolerance_pct = StrictFloat(load_default=10.0, validate=Range(min=0, max=80))
+    electrolytic_tolerance_pct = StrictFloat(load_default=20.0, validate=Range(min=0, max=80))
+    gbw_tolerance_pct = StrictFloat(load_default=0.0, validate=Range(min=0, max=90))
+
+    @post_load
+    def _make(self, data, **kwargs) -> Tolerances:
+        return Tolerances(**data)
+
+
 class SignalSchema(Schema):
     input_peak_v = StrictFloat(load_default=0.01, validate=Range(min=0, max=1000,
                                                                  min_inclusive=False))
@@ -105,12 +133,29 @@ class SignalSchema(Schema):
         return _split(Signal, data, "signal")
 
 
+class ImpedanceField(fields.Field):
+    """``"auto"`` or a number of ohms, 10 .. 1e7 (booleans and numeric strings refused)."""
+
+    default_error_messages = {"invalid": 'Give "auto" or a number of ohms from 10 to 1e7.'}
+
+    def _deserialize(self, value, attr, data, **kwargs):
+        if value == "auto":
+            return value
+        if isinstance(value, bool) or not isinstance(value, (int, float)) \
+                or not math.isfinite(value) or not 10 <= value <= 1e7:
+            raise self.make_error("invalid")
+        return float(value)
+
+
 class ComponentsSchema(Schema):
     resistor_series = fields.String(load_default="E96", validate=OneOf(RESISTOR_SERIES))
     capacitor_series = fields.String(load_default="E12", validate=OneOf(CAPACITOR_SERIES))
     resistor_tolerance_pct = StrictFloat(load_default=1.0, validate=Range(min=0, max=50))
     capacitor_tolerance_pct = StrictFloat(load_default=10.0, validate=Range(min=0, max=80))
-    impedance_ohm = StrictFloat(load_default=10_000.0, validate=Range(min=10, max=1e7))
+    impedance_ohm = ImpedanceField(load_default="auto")
+    c0g_tolerance_pct = StrictFloat(load_default=5.0, validate=Range(min=0, max=80))
+    electrolytic_tolerance_pct = StrictFloat(load_default=20.0, validate=Range(min=0, max=80))
+    gbw_tolerance_pct = StrictFloat(load_default=0.0, validate=Range(min=0, max=90))
     max_capacitor_f = LimitsSchema._declared_fields["max_capacitor_f"]
     min_resistor_ohm = LimitsSchema._declared_fields["min_resistor_ohm"]
     max_resistor_ohm = LimitsSchema._declared_fields["max_resistor_ohm"]
@@ -176,6 +221,7 @@ class DesignRequestSchema(Schema):
     stages = StagesField(load_default=None)
     components = fields.Nested(ComponentsSchema, load_default=lambda: (Components(), {}))
     strict = StrictBoolean(load_default=False)
+    gain_split = fields.String(load_default="equal", validate=OneOf(("equal", "low_noise")))
     tolerance = fields.Nested(ToleranceOptionsSchema)
     response = fields.Nested(ResponseOptionsSchema)
     temperature_k = StrictFloat(load_default=300.0, validate=Range(min=1, max=1000))
@@ -239,14 +285,6 @@ class ExplorationRequestSchema(DesignRequestSchema):
         [False], error="explorations list unmet candidates with their status; give false"))
 
 
-class AnalysisToleranceSchema(ToleranceOptionsSchema):
-    """For /v1/analyses the passive tolerances must be given (there is no request
-    ``components`` block to take them from)."""
-
-    resistor_tolerance_pct = StrictFloat(required=True, validate=Range(min=0, max=50))
-    capacitor_tolerance_pct = StrictFloat(required=True, validate=Range(min=0, max=80))
-
-
 class AnalysisRequestSchema(Schema):
     name = fields.String(validate=Length(max=80), allow_none=True)
     circuit = fields.Nested(CircuitSchema, required=True)
@@ -254,11 +292,12 @@ class AnalysisRequestSchema(Schema):
                                                                  min_inclusive=False))
     target = fields.Nested(TargetSchema, allow_none=True, load_default=None)
     limits = fields.Nested(LimitsSchema, load_default=lambda: Limits())
-    tolerance = fields.Nested(AnalysisToleranceSchema)
+    tolerances = fields.Nested(TolerancesSchema, load_default=lambda: Tolerances())
+    tolerance = fields.Nested(ToleranceOptionsSchema)
     response = fields.Nested(ResponseOptionsSchema)
     temperature_k = StrictFloat(load_default=300.0, validate=Range(min=1, max=1000))
     supply_rejection_hz = StrictFloat(validate=F_RANGE)
 
 
 __all__ = ["DesignRequestSchema", "AnalysisRequestSchema", "TargetSchema", "StrictInteger",
-           "LimitsSchema", "limits_of"]
+           "LimitsSchema", "TolerancesSchema", "limits_of"]

@@ -30,11 +30,15 @@ class TargetOutSchema(Schema):
     f_low_hz = OutFloat()
     f_high_hz = OutFloat()
     gain_tolerance_db = OutFloat()
+    f_high_max_hz = OutFloat(allow_none=True)
+    f_low_min_hz = OutFloat(allow_none=True)
+    min_yield = OutFloat()
 
 
 class ShortfallSchema(Schema):
-    quantity = fields.String(metadata={"description": "f_low_hz, f_high_hz, gain_db, or the "
-                                                      "name of a failed check"})
+    quantity = fields.String(metadata={"description": "f_low_hz, f_high_hz, gain_db, "
+                                                      "f_high_max_hz, f_low_min_hz, yield or "
+                                                      "the name of a failed check"})
     stage = fields.Integer(allow_none=True, metadata={"description": "1-based stage of a "
                                                                      "per-stage check"})
     target = OutFloat(metadata={"description": "the target figure or the check's limit"})
@@ -180,6 +184,52 @@ class TradeoffSchema(Schema):
     required_gbw_stages = fields.Integer(allow_none=True)
 
 
+class TolerancesOutSchema(Schema):
+    """Each part kind's tolerance (percent): the one its BOM line states and the Monte
+    Carlo and yield use; /v1/analyses accepts the block as it is."""
+
+    resistor_tolerance_pct = fields.Float()
+    c0g_tolerance_pct = fields.Float()
+    capacitor_tolerance_pct = fields.Float()
+    electrolytic_tolerance_pct = fields.Float()
+    gbw_tolerance_pct = fields.Float()
+
+
+class YieldFigureSchema(Schema):
+    nominal = OutFloat()
+    spread = OutFloat(allow_none=True, metadata={
+        "description": "standard deviation of the modelled figure under the tolerances"})
+    limit = fields.List(OutFloat(allow_none=True), metadata={
+        "description": "[low, high] the target allows (null: open side)"})
+
+
+class YieldBlockSchema(Schema):
+    """Predicted fraction of builds meeting the target under the ``tolerances``."""
+
+    predicted = OutFloat()
+    min_yield = OutFloat()
+    method = fields.String()
+    description = fields.String()
+    peaking_fraction = OutFloat(metadata={
+        "description": "builds whose shared bias node rings (0 with a stiff VMID)"})
+    figures = fields.Dict(keys=fields.String(), values=fields.Nested(YieldFigureSchema))
+
+
+class ComponentsOutSchema(Schema):
+    """The request's components as used: the impedance level resolved, and why."""
+
+    resistor_series = fields.String()
+    capacitor_series = fields.String()
+    resistor_tolerance_pct = fields.Float()
+    capacitor_tolerance_pct = fields.Float()
+    impedance_ohm = fields.Float()
+    c0g_tolerance_pct = fields.Float()
+    electrolytic_tolerance_pct = fields.Float()
+    gbw_tolerance_pct = fields.Float()
+    stocked_only = fields.Boolean()
+    impedance_reason = fields.String()
+
+
 class _AnalysesBlocks(Schema):
     noise = fields.Nested(NoiseBlockSchema)
     supply_rejection = fields.Nested(SupplyRejectionBlockSchema, allow_none=True)
@@ -215,11 +265,16 @@ class DesignResponseSchema(_AnalysesBlocks):
     limits = fields.Nested(LimitsOutSchema)
     bias = fields.Nested(BiasReportSchema)
     tradeoff = fields.Nested(TradeoffSchema)
+    components = fields.Nested(ComponentsOutSchema)
+    tolerances = fields.Nested(TolerancesOutSchema)
+    yield_ = fields.Nested(YieldBlockSchema, data_key="yield", attribute="yield")
     warnings = fields.List(fields.Nested(WarningSchema))
     cautions = fields.List(fields.String())
 
 
 class AnalysisResponseSchema(_AnalysesBlocks):
+    tolerances = fields.Nested(TolerancesOutSchema)
+    yield_ = fields.Nested(YieldBlockSchema, data_key="yield", attribute="yield")
     name = fields.String(allow_none=True)
     design_id = fields.String(metadata=_DESIGN_ID)
     status = fields.String(metadata={"enum": ["meets_target", "target_not_met"]})

@@ -242,6 +242,9 @@ def _custom_fields() -> dict:
         "schemas.request:StagesField": lambda conv: {"oneOf": [
             {"type": "string", "enum": ["auto"]},
             {"type": "integer", "minimum": 1, "maximum": _max_stages()}]},
+        "schemas.request:ImpedanceField": lambda conv: {"oneOf": [
+            {"type": "string", "enum": ["auto"]},
+            {"type": "number", "minimum": 10, "maximum": 1e7}]},
         "schemas.opamp:OpAmpField": lambda conv: {"oneOf": [
             {"type": "string", "minLength": 1, "maxLength": 80,
              "description": "Catalog id (GET /v1/opamps)."},

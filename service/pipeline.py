@@ -19,6 +19,7 @@ from service.engine import report
 from service.engine.judge import extras
 from service.engine.model.circuit import Circuit, DesignRequest
 from service.engine.model.identity import design_id
+from service.engine.model.parts import Tolerances, tolerances_of
 from service.engine.synthesis import design as design_mod
 from service.errors import ApiProblem
 
@@ -93,23 +94,25 @@ def load_design_request(body, catalog=None, library=False) -> tuple[DesignReques
                         signal=data["signal"][0], topology=data["topology"],
                         stages=data["stages"], components=components,
                         strict=data["strict"], name=data.get("name"), limits=limits_of(data),
-                        supply_rejection_hz=data.get("supply_rejection_hz"))
-    options = _options(data)
-    if "tolerance" in options:
-        # The passive tolerances default to the request's components (issue 4).
-        tol = dict(options["tolerance"])
-        for key in ("resistor_tolerance_pct", "capacitor_tolerance_pct"):
-            if tol.get(key) is None:
-                tol[key] = getattr(req.components, key)
-        options["tolerance"] = tol
+                        supply_rejection_hz=data.get("supply_rejection_hz"),
+                        gain_split=data["gain_split"])
+    options = _options(data, tolerances_of(req.components))
     return req, options
 
 
-def _options(data: dict) -> dict:
-    out = {"temperature_k": data.get("temperature_k", 300.0)}
+def _options(data: dict, tolerances: Tolerances) -> dict:
+    """Analyses options; the Monte Carlo takes every tolerance its block leaves out from the
+    request's normalised ``tolerances`` (one source of truth with the BOM)."""
+    out = {"temperature_k": data.get("temperature_k", 300.0), "tolerances": tolerances}
     for key in ("tolerance", "response", "supply_rejection_hz"):
         if data.get(key) is not None:
             out[key] = data[key]
+    if "tolerance" in out:
+        tol = dict(out["tolerance"])
+        for key, value in tolerances.to_dict().items():
+            if tol.get(key) is None:
+                tol[key] = value
+        out["tolerance"] = tol
     return out
 
 
@@ -221,12 +224,14 @@ def run_analysis(body) -> dict:
     data = _ANALYSIS_SCHEMA.load(body)
     circuit: Circuit = data["circuit"]
     target = data.get("target")
-    options = _options(data)
+    options = _options(data, data["tolerances"])
     _charge(circuit.n_stages, options, "This analysis")
     out = {"name": data.get("name"), "design_id": design_id(circuit)}
     out.update(report.analysis_block(circuit, target=target, input_peak_v=data["input_peak_v"],
                                      limits=data["limits"],
-                                     supply_rejection_hz=data.get("supply_rejection_hz")))
+                                     supply_rejection_hz=data.get("supply_rejection_hz"),
+                                     tolerances=data["tolerances"]))
+    out["tolerances"] = data["tolerances"].to_dict()
     out.update(extras.extra_blocks(circuit, target=target, input_peak_v=data["input_peak_v"],
                                    as_built=out["performance"]["as_built"], options=options,
                                    check_deadline=_deadline()))

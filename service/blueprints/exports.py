@@ -109,7 +109,5 @@ def _from_design_request(body):
     from service.pipeline import run_design
 
     design = run_design(body)  # validates; raises ValidationError / EngineError -> 422
-    components = body.get("components") or {}
-    tolerances = {key: float(components[key]) for key in
-                  ("resistor_tolerance_pct", "capacitor_tolerance_pct") if key in components}
-    return Circuit.from_dict(design["circuit"]), body.get("name"), design, tolerances
+    # The BOM states the tolerances the design was judged by (its ``tolerances`` block).
+    return Circuit.from_dict(design["circuit"]), body.get("name"), design, {}

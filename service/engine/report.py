@@ -7,10 +7,12 @@ them as null.
 from __future__ import annotations
 
 import math
+from dataclasses import asdict
 
-from service.engine.judge import analysis, verdict
+from service.engine.judge import analysis, verdict, yield_estimate
 from service.engine.model.circuit import NON_INVERTING, Circuit, Limits, Target
-from service.engine.synthesis import ideal
+from service.engine.model.parts import Tolerances, tolerances_of
+from service.engine.synthesis import band_limit, ideal
 from service.engine.synthesis.design import Design
 
 CAUTIONS = (
@@ -22,6 +24,11 @@ CAUTIONS = (
     "Check the op-amp's own datasheet limits (supply, inputs, output current, stability with "
     "the load) for the part actually fitted.",
 )
+
+
+#: Without ``f_high_max_hz``, an as-built f_high this many times the target draws a warning
+#: (output noise grows with the square root of the noise bandwidth; common practice).
+WIDE_BAND_RATIO = 4.0
 
 
 def bias_block(circuit: Circuit, reason: str | None) -> dict:
@@ -66,15 +73,21 @@ def _warn(code: str, message: str) -> dict:
 def analysis_block(circuit: Circuit, *, target: Target | None, input_peak_v: float,
                    limits: Limits | None = None, supply_rejection_hz: float | None = None,
                    bias_reason: str | None = None, ab: analysis.AsBuilt | None = None,
-                   judgement: verdict.Judgement | None = None) -> dict:
-    """as_built, headroom, checks, limits, bias, warnings (and status/shortfalls given a
-    target). ``judgement`` is the synthesis' own verdict when there is one; an analysis
-    judges the circuit here, by the same function."""
+                   judgement: verdict.Judgement | None = None,
+                   tolerances: Tolerances | None = None,
+                   yield_est: yield_estimate.YieldEstimate | None = None) -> dict:
+    """as_built, headroom, checks, limits, bias, warnings (and, given a target, the
+    predicted ``yield`` under ``tolerances``, status and shortfalls). ``judgement`` is the
+    synthesis' own verdict when there is one; an analysis judges the circuit here, by the
+    same function."""
     ab = ab or analysis.as_built(circuit)
     limits = limits or Limits()
+    if target is not None and yield_est is None:
+        yield_est = yield_estimate.predict(circuit, target, tolerances or Tolerances())
     judgement = judgement or verdict.judge(circuit, ab, target=target, input_peak_v=input_peak_v,
                                            limits=limits,
-                                           supply_rejection_hz=supply_rejection_hz)
+                                           supply_rejection_hz=supply_rejection_hz,
+                                           yield_est=yield_est)
     checks = list(judgement.checks)
     hr = analysis.headroom(circuit, checks, input_peak_v)
     warnings = [_warn(c, m) for c, m in analysis.circuit_warnings(circuit) + hr.warnings]
@@ -82,11 +95,6 @@ def analysis_block(circuit: Circuit, *, target: Target | None, input_peak_v: flo
         warnings.append(_warn("response_outside_band",
                               f"The response rises to {ab.outside_max_db:.2f} dB of midband "
                               "outside its -3 dB band (peaking, e.g. from a weak bias bypass)."))
-    if target is not None and ab.f_high_hz > WIDE_BAND_RATIO * target.f_high_hz:
-        warnings.append(_warn("wide_band",
-                              f"The as-built f_high {ab.f_high_hz:.4g} Hz is more than "
-                              f"{WIDE_BAND_RATIO:g}x the target {target.f_high_hz:.4g} Hz: the "
-                              "extra bandwidth adds noise and passes interference."))
     out = {
         "performance": {"as_built": ab.to_dict()},
         "headroom": {"stages": hr.stages, "overall": hr.overall},
@@ -96,18 +104,29 @@ def analysis_block(circuit: Circuit, *, target: Target | None, input_peak_v: flo
         "warnings": warnings,
         "cautions": list(CAUTIONS),
     }
+    if (target is not None and target.f_high_max_hz is None
+            and ab.f_high_hz > WIDE_BAND_RATIO * target.f_high_hz):
+        warnings.append(_warn("band_wider_than_needed",
+                              f"The as-built f_high of {ab.f_high_hz:.4g} Hz is "
+                              f"{ab.f_high_hz / target.f_high_hz:.3g} times the target's "
+                              f"{target.f_high_hz:.4g} Hz: noise bandwidth is wasted; give "
+                              "target.f_high_max_hz to band-limit the stages."))
+    if target is not None and target.f_high_max_hz is not None:
+        move = band_limit.gbw_corner_shift(circuit, band_limit.GBW_SPREAD)
+        if not move < band_limit.GBW_CORNER_MOVE:
+            warnings.append(_warn(
+                "upper_corner_follows_gbw",
+                f"A {band_limit.GBW_SPREAD:.0%} change of the op-amp's gain-bandwidth moves "
+                f"the upper corner by {move:.1%}: the op-amp, not the band-limiting "
+                "capacitors, sets it (more stages, or a faster op-amp, would fix that)."))
     if target is not None:
+        out["yield"] = yield_estimate.yield_block(yield_est)
         out["status"] = judgement.status
         out["shortfalls"] = [dict(s) for s in judgement.shortfalls]
         if judgement.status != "meets_target":
             warnings.append(_warn("target_not_met", "The as-built circuit misses the target: "
                                   + "; ".join(_shortfall_text(s) for s in judgement.shortfalls)))
     return out
-
-
-#: Above this multiple of the target f_high the as-built band is flagged as wasted noise
-#: bandwidth (issue 9's rule of thumb; common practice is to limit the band to the signal).
-WIDE_BAND_RATIO = 4.0
 
 
 def _shortfall_text(s: dict) -> str:
@@ -169,6 +188,17 @@ def _part_count(req, n: int, units: int) -> int:
     return passives + math.ceil(units / req.opamp.channels_per_package)
 
 
+def components_block(components, impedance_reason: str | None) -> dict:
+    """The resolved ``components`` (impedance level as chosen) and why that level."""
+    out = dict(asdict(components))
+    # the stocked values are the parts library's, not a request field (GET /v1/parts)
+    out.pop("resistor_values", None)
+    out.pop("capacitor_values", None)
+    out["impedance_reason"] = impedance_reason or (
+        f"Impedance level {components.impedance_ohm:g} ohm, as requested.")
+    return out
+
+
 def design_block(design: Design) -> dict:
     """The complete design response (without the optional analyses blocks)."""
     req = design.request
@@ -177,7 +207,9 @@ def design_block(design: Design) -> dict:
     body = analysis_block(circuit, target=req.target, input_peak_v=req.signal.input_peak_v,
                           limits=req.limits, supply_rejection_hz=req.supply_rejection_hz,
                           bias_reason=syn.bias_reason, ab=syn.as_built,
-                          judgement=design.judgement)
+                          judgement=design.judgement,
+                          tolerances=tolerances_of(req.components),
+                          yield_est=syn.yield_estimate)
     return {
         "name": req.name,
         "status": body.pop("status"),
@@ -193,6 +225,10 @@ def design_block(design: Design) -> dict:
         "limits": body["limits"],
         "bias": body["bias"],
         "tradeoff": tradeoff_block(design),
+        "components": components_block(syn.components or req.components,
+                                       syn.impedance_reason),
+        "tolerances": tolerances_of(req.components).to_dict(),
+        "yield": body["yield"],
         "warnings": body["warnings"],
         "cautions": body["cautions"],
     }

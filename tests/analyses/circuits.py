@@ -79,6 +79,14 @@ def one_stage_coupling(*, c_couple_f: float = 100e-9, r_bias_ohm: float = 10e3) 
                    c_out_f=None)
 
 
+def with_c_feedback(circuit: Circuit, c_feedback_f: float) -> Circuit:
+    """The circuit with a capacitor across every stage's feedback resistor (issue 9)."""
+    from dataclasses import replace
+
+    return replace(circuit, stages=tuple(replace(st, c_feedback_f=c_feedback_f)
+                                         for st in circuit.stages))
+
+
 ALL = {
     "noninv_single_buffered": lambda: noninv_single(buffered=True),
     "noninv_single_shared": lambda: noninv_single(buffered=False),
@@ -91,6 +99,15 @@ ALL = {
     "noninv_dual": lambda: noninv_dual(),
     "noninv_dual_dc": lambda: noninv_dual(dc=True),
     "inv_dual": lambda: inv_dual(),
+    # feedback capacitors: RC poles at ~16-37 kHz, below the op-amp's closed-loop poles
+    "noninv_single_buffered_cf": lambda: with_c_feedback(noninv_single(buffered=True), 470e-12),
+    "noninv_single_shared_cf": lambda: with_c_feedback(noninv_single(buffered=False), 470e-12),
+    "noninv_single_shared_no_cg_no_cout_cf": lambda: with_c_feedback(
+        noninv_single(buffered=False, c_gain=False, c_out=False), 470e-12),
+    "inv_single_buffered_cf": lambda: with_c_feedback(inv_single(buffered=True), 100e-12),
+    "inv_single_shared_cf": lambda: with_c_feedback(inv_single(buffered=False), 100e-12),
+    "noninv_dual_dc_cf": lambda: with_c_feedback(noninv_dual(dc=True), 220e-12),
+    "inv_dual_cf": lambda: with_c_feedback(inv_dual(), 100e-12),
 }
 
 

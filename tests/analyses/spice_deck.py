@@ -78,6 +78,8 @@ def netlist(circuit: Circuit, *, signal_ac: float, supply_ac: float) -> tuple[li
                 lines.append(f"cc{k} {x} {m} {_n(st.c_couple_f)}")
             lines.append(f"rin{k} {m} {n} {_n(st.r_in_ohm)}")
             lines.append(f"rf{k} {o} {n} {_n(st.r_feedback_ohm)}")
+            if st.c_feedback_f is not None:
+                lines.append(f"cf{k} {o} {n} {_n(st.c_feedback_f)}")
             opamp(ref, n, o)
         else:
             p = x
@@ -87,6 +89,8 @@ def netlist(circuit: Circuit, *, signal_ac: float, supply_ac: float) -> tuple[li
             if st.r_bias_ohm is not None:
                 lines.append(f"rb{k} {p} {ref} {_n(st.r_bias_ohm)}")
             lines.append(f"rf{k} {o} {n} {_n(st.r_feedback_ohm)}")
+            if st.c_feedback_f is not None:
+                lines.append(f"cf{k} {o} {n} {_n(st.c_feedback_f)}")
             if st.c_gain_f is None:
                 lines.append(f"rg{k} {n} {ref} {_n(st.r_gain_ohm)}")
             else:
@@ -120,6 +124,82 @@ def ripple_deck(circuit: Circuit, f_start_hz: float, f_stop_hz: float,
     return "\n".join(["gainchain supply ripple cross-check", *lines, ".control",
                       f"ac dec {per_decade} {_n(f_start_hz)} {_n(f_stop_hz)}",
                       f"print {vdb}", "quit", ".endc", ".end", ""])
+
+
+def ac_deck(circuit: Circuit, f_start_hz: float, f_stop_hz: float,
+            per_decade: int = 100) -> str:
+    """``.ac`` of Vout/Vs (the signal source at 1 V AC, the supply quiet): prints vdb."""
+    lines, out = netlist(circuit, signal_ac=1.0, supply_ac=0.0)
+    vdb = "vdb" + out[1:]
+    return "\n".join(["gainchain signal cross-check", *lines, ".control",
+                      f"ac dec {per_decade} {_n(f_start_hz)} {_n(f_stop_hz)}",
+                      f"print {vdb}", "quit", ".endc", ".end", ""])
+
+
+def corners_db(f_hz, vdb) -> tuple[float, float, float]:
+    """(peak dB, low and high -3 dB crossings nearest the peak) of a sampled response,
+    interpolated linearly in dB against log f (nan where the sweep has no crossing)."""
+    import numpy as np
+
+    f_hz, vdb = np.asarray(f_hz, float), np.asarray(vdb, float)
+    i = int(np.argmax(vdb))
+    thr = vdb[i] - 10 * math.log10(2.0)
+
+    def cross(j0, j1):
+        x0, x1 = math.log(f_hz[j0]), math.log(f_hz[j1])
+        y0, y1 = vdb[j0] - thr, vdb[j1] - thr
+        return math.exp(x0 - y0 * (x1 - x0) / (y1 - y0))
+
+    high = next((cross(j - 1, j) for j in range(i + 1, len(f_hz)) if vdb[j] < thr), math.nan)
+    low = next((cross(j + 1, j) for j in range(i - 1, -1, -1) if vdb[j] < thr), math.nan)
+    return float(vdb[i]), low, high
+
+
+#: Element names of :func:`netlist` for the Monte Carlo's parts: (field, stage index) -> name.
+_ELEMENT = {"c_couple_f": "cc{k}", "r_bias_ohm": "rb{k}", "r_feedback_ohm": "rf{k}",
+            "c_feedback_f": "cf{k}", "r_gain_ohm": "rg{k}", "c_gain_f": "cg{k}",
+            "r_in_ohm": "rin{k}", "c_out_f": "cout", "r_top_ohm": "rtop",
+            "r_bottom_ohm": "rbot", "c_bypass_f": "cbyp"}
+
+
+def monte_carlo_deck(circuit: Circuit, parts, values, f_start_hz: float, f_stop_hz: float,
+                     per_decade: int = 40) -> str:
+    """One ``.ac`` per trial in a ``.control`` block (test decks only): ``alter`` sets every
+    varied part to its drawn value (``values[trial, i]`` for ``parts[i]``, as
+    ``montecarlo.Part``), a gain-bandwidth through the pole capacitor of its unit's macro
+    model (``C = A0 / (2 pi GBW 1 kohm)``), then the response is printed."""
+    lines, out = netlist(circuit, signal_ac=1.0, supply_ac=0.0)
+    vdb = "vdb" + out[1:]
+    first_stage_unit = 2 if circuit.bias is not None and circuit.bias.buffered else 1
+    a0 = circuit.opamp.a0
+    control = [".control"]
+    for row in values:
+        for part, value in zip(parts, row, strict=True):
+            if part.field == "gbw_hz":
+                unit = first_stage_unit + part.index
+                control.append(f"alter c.xu{unit}.cp = {_n(a0 / (2 * math.pi * value * 1e3))}")
+            else:
+                name = _ELEMENT[part.field].format(k=(part.index or 0) + 1)
+                control.append(f"alter {name} = {_n(value)}")
+        control += [f"ac dec {per_decade} {_n(f_start_hz)} {_n(f_stop_hz)}", f"print {vdb}"]
+    control += ["quit", ".endc", ".end", ""]
+    return "\n".join(["gainchain Monte Carlo cross-check", *lines, *control])
+
+
+def parse_tables(stdout: str, columns: int) -> list:
+    """Every ``print`` table of a run, in order (a table restarts at index 0)."""
+    tables: list = []
+    for line in stdout.splitlines():
+        parts = line.split()
+        if len(parts) == columns + 1 and parts[0].isdigit():
+            try:
+                row = [float(v) for v in parts[1:]]
+            except ValueError:
+                continue
+            if parts[0] == "0":
+                tables.append([])
+            tables[-1].append(row)
+    return tables
 
 
 def run(deck: str, timeout_s: float = 120.0) -> str:

@@ -70,21 +70,30 @@ def test_design_with_tolerance_and_response(client, strict_json):
     assert again.data == client.post("/v1/designs", json=body).data  # same bytes
 
 
-def test_analysis_requires_passive_tolerances_and_round_trips(client, strict_json):
-    d = design(client, strict_json, DESIGN)
-    body = {"circuit": d["circuit"], "input_peak_v": 0.001, "target": d["target"],
-            "tolerance": {"trials": 200}}
-    resp = client.post("/v1/analyses", json=body)
-    assert resp.status_code == 422
-    errors = strict_json(resp.data)["errors"]["tolerance"]
-    assert "resistor_tolerance_pct" in errors and "capacitor_tolerance_pct" in errors
-    body["tolerance"].update(resistor_tolerance_pct=1, capacitor_tolerance_pct=10)
-    resp = client.post("/v1/analyses", json=body)
+def test_analysis_takes_the_tolerances_block_and_round_trips(client, strict_json):
+    # Issue 9 item 1: a design echoes its normalised tolerances; /v1/analyses accepts the
+    # block (same defaults), so analysing the design's circuit reproduces its Monte Carlo
+    # exactly (same seed, same per-part tolerances, same bytes of the block).
+    body = dict(DESIGN, tolerance={"trials": 200},
+                components={"capacitor_tolerance_pct": 5, "electrolytic_tolerance_pct": 10})
+    d = design(client, strict_json, body)
+    assert d["tolerances"] == {"resistor_tolerance_pct": 1.0, "c0g_tolerance_pct": 5.0,
+                               "capacitor_tolerance_pct": 5.0,
+                               "electrolytic_tolerance_pct": 10.0, "gbw_tolerance_pct": 0.0}
+    analysis = {"circuit": d["circuit"], "input_peak_v": 0.001, "target": d["target"],
+                "tolerances": d["tolerances"], "tolerance": {"trials": 200}}
+    resp = client.post("/v1/analyses", json=analysis)
     assert resp.status_code == 200
     a = strict_json(resp.data)
     assert a["noise"] == d["noise"]
     assert a["supply_rejection"] == d["supply_rejection"]
-    assert a["tolerance"]["trials"] == 200
+    assert a["tolerance"] == d["tolerance"]
+    assert a["tolerances"] == d["tolerances"]
+    # Without the block the analysis takes the defaults (10 % class-2, 20 % electrolytic).
+    del analysis["tolerances"]
+    a = strict_json(client.post("/v1/analyses", json=analysis).data)
+    assert a["tolerances"]["capacitor_tolerance_pct"] == 10.0
+    assert a["tolerance"]["electrolytic_tolerance_pct"] == 20.0
 
 
 @pytest.mark.parametrize("patch, field", [

@@ -64,8 +64,10 @@ def test_fraction_free_equals_chain_nodal_per_trial(name, stages):
     got = mc.shared_ref_mag(p, f)
     big = ref > 1e-3 * ref.max(axis=1, keepdims=True)
     # 12 stages of gain ~10 carry 1e12 of dynamic range through either recursion, and each
-    # loses a few digits to rounding there (we see ~3e-8); far inside the 1e-4 budget.
-    np.testing.assert_allclose(got[big], ref[big], rtol=1e-9 if stages < 12 else 1e-6)
+    # loses a few digits to rounding there (we see ~3e-8; with feedback capacitors ~4e-6,
+    # and the general MNA solve differs from both by ~4e-7); far inside the 1e-4 budget.
+    rtol = 1e-9 if stages < 12 else (1e-5 if name.endswith("_cf") else 1e-6)
+    np.testing.assert_allclose(got[big], ref[big], rtol=rtol)
 
 
 def test_model_choice():

@@ -371,6 +371,8 @@ def test_designed_circuits_match_independent_constructions(name):
     circuit = _designed(*DESIGNED[name])
     ours = chain.solve(circuit, F_HZ).vout
     f = F_HZ[::4]
-    assert _rel_err(chain.solve(circuit, f).vout, mna_response(circuit, f)) < 1e-8
+    # 1e-7: a buffered 1 Mohm divider beside 1 kohm stages leaves the MNA matrix with a
+    # condition number near 1e9, so its LU solve carries ~1e-8 relative round-off
+    assert _rel_err(chain.solve(circuit, f).vout, mna_response(circuit, f)) < 1e-7
     if circuit.bias is None or circuit.bias.buffered:  # stiff REF: scipy.signal product
         assert _rel_err(ours, scipy_response(circuit)) < 1e-9

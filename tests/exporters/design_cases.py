@@ -30,6 +30,15 @@ DESIGNS = {
         "name": "six stages", "target": {"gain_db": 90, "f_low_hz": 1000, "f_high_hz": 1e6},
         "supply": {"kind": "dual", "v_pos": 6, "v_neg": -6}, "opamp": "gc-fast-50m-g5",
         "stages": 6},
+    "single_ni_band_limited": {
+        "name": "audio band limited", "target": {"gain_db": 40, "f_low_hz": 20,
+                                                 "f_high_hz": 20000, "f_high_max_hz": 40000},
+        "supply": {"kind": "single", "v_pos": 5}, "opamp": "gc-cmos-rr-10m"},
+    "dual_inv_band_limited": {
+        "name": "inverting band limited", "target": {"gain_db": 46, "f_low_hz": 20,
+                                                     "f_high_hz": 15000, "f_high_max_hz": 30000},
+        "supply": {"kind": "dual", "v_pos": 12, "v_neg": -12}, "opamp": "gc-bjt-lownoise-8m",
+        "topology": "inverting"},
     "dual_inv_5": {
         "name": "five inverting", "target": {"gain_db": 80, "f_low_hz": 50, "f_high_hz": 200000},
         "supply": {"kind": "dual", "v_pos": 12, "v_neg": -12}, "opamp": "gc-bjt-lownoise-8m",

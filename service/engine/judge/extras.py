@@ -10,7 +10,8 @@ JSON-ready blocks, whose keys go at the top level of the response:
 * ``response`` when ``options["response"]`` is given (:mod:`service.engine.judge.response`).
 
 ``options`` keys: ``tolerance`` ``{trials, seed, resistor_tolerance_pct,
-capacitor_tolerance_pct, gbw_tolerance_pct}``; ``response`` ``{points, f_start_hz,
+c0g_tolerance_pct, capacitor_tolerance_pct, electrolytic_tolerance_pct,
+gbw_tolerance_pct}`` (the last three may be absent or None); ``response`` ``{points, f_start_hz,
 f_stop_hz}``; ``temperature_k`` (default 300); ``supply_rejection_hz`` (optional).
 Non-finite numbers may remain; the JSON layer writes them as null.
 """
@@ -45,6 +46,8 @@ def extra_blocks(circuit: Circuit, *, target: Target | None, input_peak_v: float
             resistor_tolerance_pct=float(tol["resistor_tolerance_pct"]),
             capacitor_tolerance_pct=float(tol["capacitor_tolerance_pct"]),
             gbw_tolerance_pct=float(tol.get("gbw_tolerance_pct") or 0.0),
+            c0g_tolerance_pct=_pct_or_none(tol.get("c0g_tolerance_pct")),
+            electrolytic_tolerance_pct=_pct_or_none(tol.get("electrolytic_tolerance_pct")),
             check_deadline=check_deadline,
         )
     resp = options.get("response")
@@ -53,3 +56,7 @@ def extra_blocks(circuit: Circuit, *, target: Target | None, input_peak_v: float
             circuit, as_built=as_built, points=int(resp.get("points") or DEFAULT_POINTS),
             f_start_hz=resp.get("f_start_hz"), f_stop_hz=resp.get("f_stop_hz"))
     return blocks
+
+
+def _pct_or_none(value):
+    return None if value is None else float(value)

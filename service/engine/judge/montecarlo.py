@@ -39,6 +39,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
+from service.engine.model import parts as parts_mod
 from service.engine.model.circuit import Circuit, Target
 from service.engine.solver.chain import TWO_PI, ChainParams, params_from_circuit, solve_params
 from service.engine.solver.corners import F_MAX_HZ, find_band
@@ -81,7 +82,7 @@ MODEL_DESCRIPTIONS = {
 _PER_STAGE = {
     "c_couple_f": "capacitor", "r_bias_ohm": "resistor", "r_feedback_ohm": "resistor",
     "r_gain_ohm": "resistor", "c_gain_f": "capacitor", "r_in_ohm": "resistor",
-    "gbw_hz": "gbw",
+    "gbw_hz": "gbw", "c_feedback_f": "capacitor",
 }
 _SCALAR = {"c_out_f": "capacitor", "r_top_ohm": "resistor", "r_bottom_ohm": "resistor",
            "c_bypass_f": "capacitor"}
@@ -89,15 +90,31 @@ _SCALAR = {"c_out_f": "capacitor", "r_top_ohm": "resistor", "r_bottom_ohm": "res
 
 @dataclass(frozen=True)
 class Tolerances:
-    """Half-widths of the uniform distributions, in percent."""
+    """Half-widths of the uniform distributions, in percent, per part kind.
+
+    ``capacitor_pct`` is the class-2 ceramic (X7R/X5R) tolerance; ``c0g_pct`` and
+    ``electrolytic_pct`` default to it when not given (then every capacitor shares one
+    tolerance). Which class a capacitor is comes from
+    :func:`service.engine.model.parts.capacitor_class`, the exporters' own rule.
+    """
 
     resistor_pct: float
     capacitor_pct: float
     gbw_pct: float = 0.0
+    c0g_pct: float | None = None
+    electrolytic_pct: float | None = None
+
+    @classmethod
+    def from_block(cls, t: parts_mod.Tolerances) -> Tolerances:
+        """From the normalised ``tolerances`` block of a design or analysis."""
+        return cls(t.resistor_tolerance_pct, t.capacitor_tolerance_pct, t.gbw_tolerance_pct,
+                   t.c0g_tolerance_pct, t.electrolytic_tolerance_pct)
 
     def of(self, kind: str) -> float:
-        return {"resistor": self.resistor_pct, "capacitor": self.capacitor_pct,
-                "gbw": self.gbw_pct}[kind] / 100.0
+        pct = {"resistor": self.resistor_pct, "capacitor": self.capacitor_pct,
+               parts_mod.CLASS2: self.capacitor_pct, "gbw": self.gbw_pct,
+               parts_mod.C0G: self.c0g_pct, parts_mod.ELECTROLYTIC: self.electrolytic_pct}[kind]
+        return (self.capacitor_pct if pct is None else pct) / 100.0
 
 
 @dataclass(frozen=True)
@@ -122,16 +139,26 @@ class MonteCarloResult:
     model: str
 
 
-def varied_parts(params: ChainParams, tol: Tolerances) -> tuple[Part, ...]:
-    """Every part of ``params`` that exists and has a non-zero tolerance, in a fixed order."""
+def varied_parts(params: ChainParams, tol: Tolerances,
+                 kinds: dict | None = None) -> tuple[Part, ...]:
+    """Every part of ``params`` that exists and has a non-zero tolerance, in a fixed order.
+
+    ``kinds`` (``{(field, stage index | None): kind}``, from
+    :func:`service.engine.model.parts.capacitor_kinds`) gives each capacitor its class;
+    without it every capacitor is of kind ``"capacitor"``.
+    """
+    kinds = kinds or {}
     parts = []
     for k in range(len(params.r_feedback_ohm)):
         for name, kind in _PER_STAGE.items():
-            value = getattr(params, name)[k]
+            values = getattr(params, name)
+            value = None if values is None else values[k]
+            kind = kinds.get((name, k), kind)
             if value is not None and tol.of(kind) > 0:
                 parts.append(Part(name, k, kind, float(value)))
     for name, kind in _SCALAR.items():
         value = getattr(params, name)
+        kind = kinds.get((name, None), kind)
         if value is not None and tol.of(kind) > 0:
             parts.append(Part(name, None, kind, float(value)))
     return tuple(parts)
@@ -182,6 +209,78 @@ def _polymul(p, q):
     return out
 
 
+def _polyadd(p, q):
+    """Sum of two coefficient lists (low first)."""
+    n = max(len(p), len(q))
+    return [(p[i] if i < len(p) else 0.0) + (q[i] if i < len(q) else 0.0) for i in range(n)]
+
+
+def _mag2_poly(c):
+    """``|c0 + c1 s + c2 s^2 + ...|^2`` at ``s = j w`` as a polynomial in ``x = w^2``.
+
+    With ``s^k = j^k w^k``: real part ``c0 - c2 x + c4 x^2 - ...``, imaginary part
+    ``w (c1 - c3 x + ...)``, so ``|P|^2 = Re(x)^2 + x Im'(x)^2`` (coefficients low first).
+    """
+    re = [c[i] * (-1.0) ** (i // 2) for i in range(0, len(c), 2)]
+    im = [c[i] * (-1.0) ** (i // 2) for i in range(1, len(c), 2)]
+    out = _polymul(re, re)
+    if im:
+        out = _polyadd(out, [0.0] + _polymul(im, im))
+    return out
+
+
+def feedback_stage_polys(p: ChainParams, k: int, cf):
+    """Stage k with a feedback capacitor: polynomials in ``s`` (coefficients low first).
+
+    ``Zf = Rf / df``, ``df = 1 + s Rf Cf``; ``tau = A0 / (2 pi GBW)``. Multiplying the stage
+    equations of :mod:`service.engine.solver.chain` through by ``df (1 + s tau)`` and by
+    ``s C`` of the stage's series capacitor (``Cg`` non-inverting, ``Cc`` inverting):
+
+    * non-inverting, ``Zg = Rg + 1/(s Cg)``: with ``L = Rf s Cg + (1 + s Rg Cg) df``,
+      ``O/P = A0 L / ((1 + s tau) L + A0 (1 + s Rg Cg) df)``; without ``Cg``
+      (``Rg`` to REF): ``L = Rf + Rg df``, ``O = (A0 L P - A0 Rf v_ref) / ((1 + s tau) L
+      + A0 Rg df)``;
+    * inverting, ``Zi = R'in + 1/(s Cc)``: ``L = Rf s Cc + (1 + s Cc R'in) df``,
+      ``O = (-A0 Rf s Cc X + A0 L v_ref) / ((1 + s tau) L + A0 (1 + s Cc R'in) df)``;
+      without ``Cc``: ``L = Rf + R'in df``, ``alpha = -A0 Rf``, the rest alike.
+
+    Returns ``(alpha, beta, den)``: the output is ``(alpha X + beta v_ref) / den`` for the
+    inverting stage and ``(alpha P - beta v_ref) / den`` for the non-inverting one
+    (``beta`` 0 when ``Cg`` exists).
+    """
+    a0 = p.a0
+    tau = a0 / (TWO_PI * p.gbw_hz[k])
+    rf = p.r_feedback_ohm[k]
+    df = [1.0, rf * cf]
+    lag = [1.0, tau]
+    if p.inverting:
+        rin = p.r_in_ohm[k] + (p.source_impedance_ohm if k == 0 else 0.0)
+        cc = p.c_couple_f[k]
+        if cc is None:
+            leg = [rin]
+            alpha = [-a0 * rf]
+            ell = _polyadd([rf], _polymul([rin], df))
+        else:
+            leg = [1.0, cc * rin]
+            alpha = [0.0, -a0 * rf * cc]
+            ell = _polyadd([0.0, rf * cc], _polymul(leg, df))
+        beta = [a0 * c for c in ell]
+    else:
+        rg = p.r_gain_ohm[k]
+        cg = p.c_gain_f[k]
+        if cg is None:
+            leg = [rg]
+            ell = _polyadd([rf], _polymul([rg], df))
+            beta = [a0 * rf]
+        else:
+            leg = [1.0, rg * cg]
+            ell = _polyadd([0.0, rf * cg], _polymul(leg, df))
+            beta = [0.0]
+        alpha = [a0 * c for c in ell]
+    den = _polyadd(_polymul(lag, ell), [a0 * c for c in _polymul(leg, df)])
+    return alpha, beta, den
+
+
 def _horner_into(coeffs, x, out):
     """Evaluate the polynomial ``coeffs`` (low first) at ``x`` into ``out``, in place.
 
@@ -213,6 +312,19 @@ def stage_factors(p: ChainParams) -> list:
         rf = p.r_feedback_ohm[k]
         cc = p.c_couple_f[k]
         series = rs if k == 0 else 0.0
+        cf = None if p.c_feedback_f is None else p.c_feedback_f[k]
+        if cf is not None:
+            alpha, _, den_s = feedback_stage_polys(p, k, cf)
+            num, den = _mag2_poly(alpha), _mag2_poly(den_s)
+            if not p.inverting:
+                rb = p.r_bias_ohm[k]
+                if cc is not None:
+                    num = _polymul([0.0, (cc * rb) ** 2], num)
+                    den = _polymul([1.0, (cc * (rb + series)) ** 2], den)
+                elif rb is not None and k == 0:
+                    num = _polymul([(rb / (rb + rs)) ** 2], num)
+            factors.append((num, den))
+            continue
         if p.inverting:
             rin = p.r_in_ohm[k] + series
             if cc is None:
@@ -291,6 +403,13 @@ def _poly_s(coeffs, s):
     return out
 
 
+def _poly_any(coeffs, s):
+    """``sum c_i s^i`` at complex ``s`` for any number of coefficients (low first)."""
+    if len(coeffs) == 1:
+        return coeffs[0] + 0.0 * s
+    return _poly_s(coeffs, s)
+
+
 #: The fraction-free recursion rescales its numerators every this many stages, so their
 #: growth (up to ~1e20 per stage at 10 GHz) never overflows a double.
 RESCALE_EVERY = 3
@@ -320,7 +439,7 @@ def shared_ref_mag(p: ChainParams, f_hz) -> np.ndarray:
     w = TWO_PI * np.asarray(f_hz, dtype=float)
     values = [p.load_ohm, p.r_top_ohm, p.r_bottom_ohm, p.c_bypass_f, p.c_out_f,
               *p.gbw_hz, *p.c_couple_f, *p.r_bias_ohm, *p.r_feedback_ohm, *p.r_gain_ohm,
-              *p.c_gain_f, *p.r_in_ohm]
+              *p.c_gain_f, *p.r_in_ohm, *(p.c_feedback_f or [])]
     shape = np.broadcast_shapes(w.shape, *(np.shape(v) for v in values if v is not None))
     s = np.zeros(shape, dtype=complex)
     s.imag = w
@@ -337,7 +456,18 @@ def shared_ref_mag(p: ChainParams, f_hz) -> np.ndarray:
         rf = p.r_feedback_ohm[k]
         cc = p.c_couple_f[k]
         rs_k = rs if k == 0 else 0.0
-        if p.inverting:
+        cf = None if p.c_feedback_f is None else p.c_feedback_f[k]
+        if p.inverting and cf is not None:
+            alpha_c, beta_c, den_c = feedback_stage_polys(p, k, cf)
+            den = _poly_any(den_c, s)
+            alpha_s = _poly_any(alpha_c, s)
+            new_b = b_n * alpha_s
+            new_b += q * _poly_any(beta_c, s)
+            a_n *= alpha_s
+            b_n = new_b
+            for arr in (q, ia, ib):
+                arr *= den
+        elif p.inverting:
             rin = p.r_in_ohm[k] + rs_k
             if cc is None:
                 den = _poly_s([rf + rin + a0 * rin, tau * (rf + rin)], s)
@@ -381,24 +511,46 @@ def shared_ref_mag(p: ChainParams, f_hz) -> np.ndarray:
                 q *= d_y
             rg = p.r_gain_ohm[k]
             cg = p.c_gain_f[k]
-            if cg is None:
-                den = _poly_s([rf + rg + a0 * rg, tau * (rf + rg)], s)
-                num = a0 * (rf + rg)
+            if cf is not None:
+                alpha_c, _, den_c = feedback_stage_polys(p, k, cf)
+                den = _poly_any(den_c, s)
+                num = _poly_any(alpha_c, s)
                 a_n *= num
                 b_n *= num
-                b_n -= q * (a0 * rf)
+                if cg is None:
+                    b_n -= q * (a0 * rf)
+                for arr in (q, ia, ib):
+                    arr *= den
+                if cg is None:
+                    # the leg O -> Zf -> Rg -> REF injects (O - v_ref) df / (Rf + Rg df):
+                    # every quantity goes over the common denominator q (Rf + Rg df)
+                    d_f = _poly_any([1.0, rf * cf], s)
+                    d_l = _poly_any([rf + rg, rg * rf * cf], s)
+                    inj_a = a_n * d_f
+                    inj_b = (b_n - q) * d_f
+                    for arr in (a_n, b_n, q, ia, ib):
+                        arr *= d_l
+                    ia += inj_a
+                    ib += inj_b
             else:
-                t_fg = cg * (rf + rg)
-                den = _poly_s([1.0 + a0, tau + t_fg + a0 * rg * cg, tau * t_fg], s)
-                num = _poly_s([a0, a0 * t_fg], s)
-                a_n *= num
-                b_n *= num
-            for arr in (q, ia, ib):
-                arr *= den
-            if cg is None:
-                leg = 1.0 / (rf + rg)
-                ia += a_n * leg
-                ib += (b_n - q) * leg
+                if cg is None:
+                    den = _poly_s([rf + rg + a0 * rg, tau * (rf + rg)], s)
+                    num = a0 * (rf + rg)
+                    a_n *= num
+                    b_n *= num
+                    b_n -= q * (a0 * rf)
+                else:
+                    t_fg = cg * (rf + rg)
+                    den = _poly_s([1.0 + a0, tau + t_fg + a0 * rg * cg, tau * t_fg], s)
+                    num = _poly_s([a0, a0 * t_fg], s)
+                    a_n *= num
+                    b_n *= num
+                for arr in (q, ia, ib):
+                    arr *= den
+                if cg is None:
+                    leg = 1.0 / (rf + rg)
+                    ia += a_n * leg
+                    ib += (b_n - q) * leg
         if (k + 1) % RESCALE_EVERY == 0:
             scale = 1.0 / np.abs(q)
             for arr in (a_n, b_n, ia, ib, q):
@@ -481,7 +633,7 @@ def run(circuit: Circuit, *, trials: int, tol: Tolerances, rng: np.random.Genera
     if not 1 <= trials <= MAX_TRIALS:
         raise ValueError(f"trials must be 1..{MAX_TRIALS}, got {trials}")
     params = params_from_circuit(circuit)
-    parts = varied_parts(params, tol)
+    parts = varied_parts(params, tol, parts_mod.capacitor_kinds(circuit))
     values = draw(parts, trials, tol, rng)
     chunks = [(a, min(a + CHUNK_TRIALS, trials)) for a in range(0, trials, CHUNK_TRIALS)]
 
@@ -507,7 +659,7 @@ def worst_cases(circuit: Circuit, *, tol: Tolerances, grid_hz: np.ndarray) -> di
     """First-order worst case of each figure: ``{figure: (low, high)}`` (full chain-nodal
     model: only a handful of evaluations)."""
     params = params_from_circuit(circuit)
-    parts = varied_parts(params, tol)
+    parts = varied_parts(params, tol, parts_mod.capacitor_kinds(circuit))
     nominal = np.array([p.nominal for p in parts])
     if not parts:
         g, lo, hi = figures(params, grid_hz, 1)
@@ -548,7 +700,8 @@ def summary(values: np.ndarray) -> dict:
 
 
 def meets(result: MonteCarloResult, target: Target) -> np.ndarray:
-    """Per trial: f_low <= target, f_high >= target, |gain_db - target| <= tolerance.
+    """Per trial: f_low <= target, f_high >= target, |gain_db - target| <= tolerance, and
+    the band inside ``f_low_min_hz`` / ``f_high_max_hz`` when the target gives them.
 
     A trial without a low corner on the grid (DC coupled, or far below the target) meets the
     low-corner condition; a trial without a high corner inside the grid meets the high one.
@@ -557,16 +710,28 @@ def meets(result: MonteCarloResult, target: Target) -> np.ndarray:
     with np.errstate(invalid="ignore"):
         low_ok = ~(result.f_low_hz > target.f_low_hz)
         high_ok = ~(result.f_high_hz < target.f_high_hz)
+        if target.f_high_max_hz is not None:
+            high_ok &= ~(result.f_high_hz > target.f_high_max_hz) & np.isfinite(result.f_high_hz)
+        if target.f_low_min_hz is not None:
+            low_ok &= result.f_low_hz >= target.f_low_min_hz
     return gain_ok & low_ok & high_ok
 
 
 def tolerance_block(circuit: Circuit, *, target: Target | None, as_built: dict, trials: int,
                     seed: int, resistor_tolerance_pct: float, capacitor_tolerance_pct: float,
                     gbw_tolerance_pct: float = 0.0,
+                    c0g_tolerance_pct: float | None = None,
+                    electrolytic_tolerance_pct: float | None = None,
                     frequency_points: int = DEFAULT_FREQUENCY_POINTS,
                     check_deadline=None) -> dict:
-    """The response's ``tolerance`` block (JSON-ready)."""
-    tol = Tolerances(resistor_tolerance_pct, capacitor_tolerance_pct, gbw_tolerance_pct)
+    """The response's ``tolerance`` block (JSON-ready).
+
+    Each capacitor takes its class's tolerance (``c0g_tolerance_pct``,
+    ``capacitor_tolerance_pct`` for X7R/X5R, ``electrolytic_tolerance_pct``; the first and
+    last default to ``capacitor_tolerance_pct`` when not given).
+    """
+    tol = Tolerances(resistor_tolerance_pct, capacitor_tolerance_pct, gbw_tolerance_pct,
+                     c0g_tolerance_pct, electrolytic_tolerance_pct)
     f_low = _float_or_nan(as_built.get("f_low_hz"))
     f_high = _float_or_nan(as_built.get("f_high_hz"))
     if not math.isfinite(f_high):  # no high corner below 10 GHz: grid up to the range top
@@ -592,11 +757,14 @@ def tolerance_block(circuit: Circuit, *, target: Target | None, as_built: dict, 
         "seed": seed,
         "resistor_tolerance_pct": resistor_tolerance_pct,
         "capacitor_tolerance_pct": capacitor_tolerance_pct,
+        "c0g_tolerance_pct": tol.of(parts_mod.C0G) * 100.0,
+        "electrolytic_tolerance_pct": tol.of(parts_mod.ELECTROLYTIC) * 100.0,
         "gbw_tolerance_pct": gbw_tolerance_pct,
         "distribution": ("independent uniform: every resistor and capacitor (source and load "
                          "impedances excepted) at nominal*(1+t*u), u uniform on [-1, 1], t its "
-                         "tolerance; each op-amp unit's gain-bandwidth likewise within "
-                         "gbw_tolerance_pct"),
+                         "tolerance (a capacitor's by the class its BOM line states: C0G/NP0, "
+                         "X7R/X5R or aluminium electrolytic); each op-amp unit's "
+                         "gain-bandwidth likewise within gbw_tolerance_pct"),
         "model": {
             "name": result.model,
             "description": MODEL_DESCRIPTIONS[result.model],

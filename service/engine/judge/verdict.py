@@ -1,8 +1,9 @@
 """The verdict on a circuit: its as-built figures against the target, and every build check.
 
 ``status`` is ``meets_target`` iff the as-built circuit meets the target (gain within
-``gain_tolerance_db``, f_low at or below and f_high at or above the target) *and* every
-check with a limit passes (:mod:`service.engine.judge.checks`). The synthesis and the
+``gain_tolerance_db``, f_low at or below and f_high at or above the target, inside
+``f_low_min_hz`` / ``f_high_max_hz`` when given), every check with a limit passes, and the
+predicted yield reaches ``min_yield`` (:mod:`service.engine.judge.checks`). The synthesis and the
 report both judge through :func:`judge`, so a design and the analysis of its circuit agree.
 """
 
@@ -10,7 +11,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from service.engine.judge import analysis
+from service.engine.judge import analysis, yield_estimate
 from service.engine.judge.checks import Check, CheckContext, run_checks
 from service.engine.judge.supply_rejection import ripple_frequencies
 from service.engine.model.circuit import Circuit, Limits, Target
@@ -31,8 +32,10 @@ class Judgement:
 
 def judge(circuit: Circuit, ab: analysis.AsBuilt, *, target: Target | None,
           input_peak_v: float, limits: Limits, supply_rejection_hz: float | None = None,
-          startup: bool = True) -> Judgement:
-    """Run every check on ``circuit`` (as built: ``ab``) and give the verdict."""
+          startup: bool = True, yield_est=None) -> Judgement:
+    """Run every check on ``circuit`` (as built: ``ab``) and give the verdict; with a
+    target, the predicted yield (``yield_est``, :mod:`service.engine.judge.yield_estimate`)
+    must also reach ``min_yield`` (shortfall ``yield``, after the failed checks)."""
     ctx = CheckContext(input_peak_v=input_peak_v, target=target, limits=limits,
                        f_low_hz=ab.f_low_hz, f_high_hz=ab.f_high_hz, peak_hz=ab.peak_hz,
                        ripple_frequencies_hz=ripple_frequencies(supply_rejection_hz))
@@ -40,4 +43,5 @@ def judge(circuit: Circuit, ab: analysis.AsBuilt, *, target: Target | None,
     if target is None:
         return Judgement(checks, None, ())
     status, shortfalls = analysis.verdict(ab, target, list(checks))
+    status, shortfalls = yield_estimate.with_yield(status, shortfalls, yield_est)
     return Judgement(checks, status, tuple(shortfalls))

@@ -25,8 +25,9 @@ DUAL = "dual"
 
 #: Stage keys per topology, in the order the JSON form lists them.
 STAGE_KEYS = {
-    NON_INVERTING: ("c_couple_f", "r_bias_ohm", "r_feedback_ohm", "r_gain_ohm", "c_gain_f"),
-    INVERTING: ("c_couple_f", "r_in_ohm", "r_feedback_ohm"),
+    NON_INVERTING: ("c_couple_f", "r_bias_ohm", "r_feedback_ohm", "c_feedback_f", "r_gain_ohm",
+                    "c_gain_f"),
+    INVERTING: ("c_couple_f", "r_in_ohm", "r_feedback_ohm", "c_feedback_f"),
 }
 
 
@@ -119,7 +120,11 @@ class Bias:
 
 @dataclass(frozen=True)
 class Stage:
-    """One gain stage. Which keys apply depends on the circuit's topology (``STAGE_KEYS``)."""
+    """One gain stage. Which keys apply depends on the circuit's topology (``STAGE_KEYS``).
+
+    ``c_feedback_f`` (both topologies) sits across ``r_feedback_ohm`` (O_k-N_k): the
+    feedback impedance becomes ``Rf || 1/(s Cf)``, a band-limiting pole; None = none.
+    """
 
     r_feedback_ohm: float
     c_couple_f: float | None = None
@@ -127,6 +132,7 @@ class Stage:
     r_gain_ohm: float | None = None
     c_gain_f: float | None = None
     r_in_ohm: float | None = None
+    c_feedback_f: float | None = None
 
     def to_dict(self, topology: str) -> dict:
         return {k: getattr(self, k) for k in STAGE_KEYS[topology]}
@@ -191,24 +197,36 @@ class Circuit:
 
 @dataclass(frozen=True)
 class Target:
-    """Normalised cascade target: overall gain (ratio and dB) and the pass band."""
+    """Normalised cascade target: overall gain (ratio and dB) and the pass band.
+
+    ``f_high_max_hz`` / ``f_low_min_hz`` (optional) bound the as-built band from outside:
+    f_high must not exceed the first, f_low must not fall below the second. ``min_yield``
+    is the fraction of builds (parts independent and uniform within their tolerances) that
+    must meet all of it.
+    """
 
     gain: float
     gain_db: float
     f_low_hz: float
     f_high_hz: float
     gain_tolerance_db: float = 0.5
+    f_high_max_hz: float | None = None
+    f_low_min_hz: float | None = None
+    min_yield: float = 0.9
 
     @classmethod
     def from_gain(cls, *, gain: float | None = None, gain_db: float | None = None,
-                  f_low_hz: float, f_high_hz: float, gain_tolerance_db: float = 0.5) -> Target:
+                  f_low_hz: float, f_high_hz: float, gain_tolerance_db: float = 0.5,
+                  f_high_max_hz: float | None = None, f_low_min_hz: float | None = None,
+                  min_yield: float = 0.9) -> Target:
         """Either ``gain`` or ``gain_db`` (or both, when they agree) fixes the other."""
         if gain is None:
             gain = 10.0 ** (gain_db / 20.0)
         if gain_db is None:
             gain_db = 20.0 * math.log10(gain)
         return cls(gain=gain, gain_db=gain_db, f_low_hz=f_low_hz, f_high_hz=f_high_hz,
-                   gain_tolerance_db=gain_tolerance_db)
+                   gain_tolerance_db=gain_tolerance_db, f_high_max_hz=f_high_max_hz,
+                   f_low_min_hz=f_low_min_hz, min_yield=min_yield)
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -216,7 +234,10 @@ class Target:
 
 @dataclass(frozen=True)
 class Components:
-    """Component-series choices of a design request.
+    """Component-series choices of a design request, the impedance level (ohm, or "auto"),
+    and each part kind's tolerance (common practice: resistors 1 %, C0G/NP0 5 %, X7R/X5R
+    10 %, aluminium electrolytics 20 %; the op-amp's gain-bandwidth spread 0 unless the user
+    gives it).
 
     ``resistor_values`` / ``capacitor_values`` (None: the whole series) restrict the
     synthesis to those values of the series, e.g. an organisation's stocked parts when the
@@ -227,7 +248,10 @@ class Components:
     capacitor_series: str = "E12"
     resistor_tolerance_pct: float = 1.0
     capacitor_tolerance_pct: float = 10.0
-    impedance_ohm: float = 10_000.0
+    impedance_ohm: float | str = "auto"  # "auto": chosen per design (synthesis.impedance)
+    c0g_tolerance_pct: float = 5.0
+    electrolytic_tolerance_pct: float = 20.0
+    gbw_tolerance_pct: float = 0.0
     stocked_only: bool = False
     resistor_values: tuple[float, ...] | None = None
     capacitor_values: tuple[float, ...] | None = None
@@ -292,3 +316,4 @@ class DesignRequest:
     limits: Limits = field(default_factory=Limits)
     #: An extra supply-ripple frequency (Hz) judged besides the mains set.
     supply_rejection_hz: float | None = None
+    gain_split: str = "equal"  # "equal" | "low_noise" (synthesis.gain_split)

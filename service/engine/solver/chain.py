@@ -19,6 +19,8 @@ Stage equations (Z of a capacitor is ``1/(sC)``):
   ``O = A (P (Rf + Zg) - v_ret Rf) / (Rf + Zg + A Zg)``.
 * inverting: ``Zi = Zc + Rin``; ``O = A (v_ref (Rf + Zi) - X Rf) / (Rf + Zi + A Zi)``;
   the stage draws ``(X - O) / (Rf + Zi)`` from its input.
+* a feedback capacitor ``c_feedback_f`` replaces ``Rf`` by ``Zf = Rf / (1 + s Rf Cf)`` in
+  every formula above.
 
 Every parameter may be a float or an array broadcastable against ``f_hz``, so one call
 evaluates many trials (shape ``(trials, 1)`` against ``(1, frequencies)``).
@@ -89,6 +91,9 @@ class ChainParams:
     r_top_ohm: object = None
     r_bottom_ohm: object = None
     c_bypass_f: object = None
+    # per stage: capacitor across r_feedback_ohm (None: none; the list may be None: no stage
+    # has one)
+    c_feedback_f: list | None = None
 
 
 def params_from_circuit(circuit: Circuit) -> ChainParams:
@@ -111,7 +116,18 @@ def params_from_circuit(circuit: Circuit) -> ChainParams:
         r_top_ohm=bias.r_top_ohm if floating_ref else None,
         r_bottom_ohm=bias.r_bottom_ohm if floating_ref else None,
         c_bypass_f=bias.c_bypass_f if floating_ref else None,
+        c_feedback_f=[s.c_feedback_f for s in stages],
     )
+
+
+def feedback_impedance(s, rf, cf):
+    """``Zf = Rf || 1/(s Cf) = Rf / (1 + s Rf Cf)``; ``Rf`` itself when ``cf`` is None."""
+    return rf if cf is None else rf / (1.0 + s * rf * cf)
+
+
+def c_feedback_of(p: ChainParams, k: int):
+    """Stage k's feedback capacitor in ``p`` (None when absent)."""
+    return None if p.c_feedback_f is None else p.c_feedback_f[k]
 
 
 def open_loop_gain(s, a0, gbw_hz):
@@ -138,7 +154,7 @@ def solve_params(p: ChainParams, f_hz) -> ChainSolution:
     n = len(p.r_feedback_ohm)
     for k in range(n):
         amp = open_loop_gain(s, p.a0, p.gbw_hz[k])
-        rf = p.r_feedback_ohm[k]
+        rf = feedback_impedance(s, p.r_feedback_ohm[k], c_feedback_of(p, k))
         cc = p.c_couple_f[k]
         zc = zero if cc is None else 1.0 / (s * cc)
         if p.inverting:

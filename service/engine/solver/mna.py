@@ -274,6 +274,8 @@ def build(circuit: Circuit) -> MnaSystem:
                 bld.capacitor(x, m, st.c_couple_f)
             bld.resistor(f"R_in{k}", m, neg, st.r_in_ohm, grp)
             bld.resistor(f"R_feedback{k}", out, neg, st.r_feedback_ohm, grp)
+            if st.c_feedback_f is not None:
+                bld.capacitor(out, neg, st.c_feedback_f)
             bld.opamp(f"U{k}", ref, neg, out, a0, gbw, grp)
         else:
             pos = x if st.c_couple_f is None else f"P{k}"
@@ -282,6 +284,8 @@ def build(circuit: Circuit) -> MnaSystem:
             if st.r_bias_ohm is not None:
                 bld.resistor(f"R_bias{k}", pos, ref, st.r_bias_ohm, grp)
             bld.resistor(f"R_feedback{k}", out, neg, st.r_feedback_ohm, grp)
+            if st.c_feedback_f is not None:
+                bld.capacitor(out, neg, st.c_feedback_f)
             if st.c_gain_f is None:
                 bld.resistor(f"R_gain{k}", neg, ref, st.r_gain_ohm, grp)
             else:

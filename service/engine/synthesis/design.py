@@ -24,6 +24,13 @@ Steps for a stage count n (``synthesize``):
    the output swing window; VMID is buffered by a spare op-amp unit when a package has one
    (and the part is unity-gain stable), else the divider is bypassed, the bypass grown until
    the response is free of low-frequency peaking, and buffered as a last resort.
+4. **Band limit** (with ``f_high_max_hz``): feedback capacitors set the upper corner
+   (:mod:`service.engine.synthesis.band_limit`).
+
+Around these steps: an ``"auto"`` impedance level is chosen first
+(:mod:`service.engine.synthesis.impedance`), the gain may be split unequally
+(:mod:`service.engine.synthesis.gain_split`), and the passes are repeated for aimed corners
+until the predicted yield reaches ``min_yield`` (:mod:`service.engine.synthesis.centring`).
 """
 
 from __future__ import annotations
@@ -35,7 +42,7 @@ from functools import lru_cache
 import numpy as np
 
 from service.engine.errors import EngineError
-from service.engine.judge import checks
+from service.engine.judge import checks, yield_estimate
 from service.engine.judge.analysis import (
     AsBuilt,
     as_built,
@@ -54,9 +61,10 @@ from service.engine.model.circuit import (
     DesignRequest,
     Stage,
 )
+from service.engine.model.parts import tolerances_of
 from service.engine.solver import chain, corners
 from service.engine.solver.mna import build as build_mna
-from service.engine.synthesis import ideal
+from service.engine.synthesis import band_limit, centring, gain_split, ideal, impedance
 
 TWO_PI = 2.0 * math.pi
 #: Scale factors tried for the low-side poles (sigma), log-spaced; 6 % apart, finer than
@@ -82,6 +90,9 @@ class Synthesis:
     circuit: Circuit
     as_built: AsBuilt
     bias_reason: str | None
+    yield_estimate: object = None  # judge.yield_estimate.YieldEstimate of the final circuit
+    components: object = None  # the request's Components, impedance level resolved
+    impedance_reason: str | None = None  # why the level, when it was chosen ("auto")
 
 
 @lru_cache(maxsize=16)
@@ -168,30 +179,38 @@ def gain_candidates(series: str, gain: float, topology: str, impedance_ohm: floa
 def choose_pairs(series: str, gain: float, n: int, topology: str, impedance_ohm: float,
                  r_source_ohm: float, correction: float = 1.0,
                  previous: list | None = None,
-                 min_noise_gain: float = 1.0) -> list[tuple[float, float]]:
+                 min_noise_gain: float = 1.0,
+                 first_gain: float | None = None) -> list[tuple[float, float]]:
     """Feedback pairs for n stages whose gain *product* is nearest ``gain / correction``.
 
     Stages 1..n-2 take the pair nearest ``g = gain**(1/n)``; the last two stages search all
     combinations of their candidate lists (E96 ratios are quantised in ~2.4 % steps, their
     pairwise products far more finely), so the product lands within a few 0.01 % of the
     need. ``correction`` is the measured as-built / ideal-product ratio of a previous pass.
+    ``first_gain`` (a ``low_noise`` split, :mod:`service.engine.synthesis.gain_split`):
+    stage 1 takes the pair nearest it and the others share the rest the same way.
     """
     g = gain ** (1.0 / n)
+    targets = [g] * n
+    alone = max(n - 2, 0)
+    if first_gain is not None and n >= 2:
+        targets = [first_gain] + [(gain / first_gain) ** (1.0 / (n - 1))] * (n - 1)
+        alone = max(n - 2, 1)
     extra = [r_source_ohm if (topology == INVERTING and k == 0) else 0.0 for k in range(n)]
     pairs = []
-    for k in range(max(n - 2, 0)):
+    for k in range(alone):
         if previous is not None:
             pairs.append(previous[k])
             continue
-        _, rf, r2 = gain_candidates(series, g, topology, impedance_ohm, extra[k],
+        _, rf, r2 = gain_candidates(series, targets[k], topology, impedance_ohm, extra[k],
                                     min_noise_gain=min_noise_gain)
         pairs.append((float(rf[0]), float(r2[0])))
     done = math.prod(_pair_gain(p, topology, r_source_ohm, k) for k, p in enumerate(pairs))
     need = gain / correction / done
-    if n == 1:
-        ga, rfa, r2a = gain_candidates(series, need, topology, impedance_ohm, extra[0],
+    if n - alone == 1:  # one stage left (n = 1, or n = 2 with a first-stage gain)
+        ga, rfa, r2a = gain_candidates(series, need, topology, impedance_ohm, extra[n - 1],
                                          min_noise_gain=min_noise_gain)
-        return [(float(rfa[0]), float(r2a[0]))]
+        return pairs + [(float(rfa[0]), float(r2a[0]))]
     rest = need ** 0.5
     ga, rfa, r2a = gain_candidates(series, rest, topology, impedance_ohm, extra[n - 2],
                                      min_noise_gain=min_noise_gain)
@@ -233,44 +252,66 @@ def _midrail_target_v(req: DesignRequest) -> float:
     return 0.5 * ((req.supply.v_pos - op.swing_to_pos_v) + op.swing_to_neg_v)
 
 
-def synthesize(req: DesignRequest, n: int) -> Synthesis:
-    """The complete circuit for ``n`` stages (deterministic: a pure function of its inputs).
+def synthesize(req: DesignRequest, n: int, *, aim: centring.Aim | None = None) -> Synthesis:
+    """The complete circuit for ``n`` stages (deterministic: a pure function of its inputs),
+    centred for the target's ``min_yield`` (:mod:`service.engine.synthesis.centring`: the
+    passes below size for ``aim``'s corners)."""
+    if aim is None:
+        passes: dict = {}  # (request, aim) -> Synthesis: the level search and the centring
+                           # share their first passes
 
-    The gain passes run against the bias network they will be built with: when settling
-    the bias (flatness, supply ripple) changes it, the passes run again on the new one.
-    """
+        def at(r: DesignRequest, a: centring.Aim) -> Synthesis:
+            if (r, a) not in passes:
+                passes[(r, a)] = synthesize(r, n, aim=a)
+            return passes[(r, a)]
+
+        req, why = impedance.resolve(req, lambda r: at(r, centring.first_aim(r)))
+        syn = centring.centre(req, lambda a: at(req, a))
+        return replace(syn, components=req.components, impedance_reason=why)
+    req = centring.aimed_request(req, aim)
     comp = req.components
     topo = req.topology
+    target = req.target
     rs = req.signal.source_impedance_ohm
-    pairs = choose_pairs(comp.resistor_pool, req.target.gain, n, topo, comp.impedance_ohm,
-                         rs, min_noise_gain=req.opamp.min_stable_gain)
+    ac = target.f_low_hz > 0
+    stable = req.opamp.min_stable_gain
+    first = gain_split.first_stage_gain(req, n)
+    pairs = choose_pairs(comp.resistor_pool, target.gain, n, topo, comp.impedance_ohm, rs,
+                         min_noise_gain=stable, first_gain=first)
     bias, bias_reason = _initial_bias(req, n)
     # One cheap solve predicts the losses (source divider, finite A0) before any capacitor
-    # is sized, so the gain passes usually settle in one.
+    # is sized, so the loop below usually settles in one pass.
     ideal_product = math.prod(_pair_gain(p, topo, rs, k) for k, p in enumerate(pairs))
-    pairs = choose_pairs(comp.resistor_pool, req.target.gain, n, topo, comp.impedance_ohm,
-                         rs, correction=_midband_estimate(req, pairs) / ideal_product,
-                         min_noise_gain=req.opamp.min_stable_gain)
-    pairs, circuit, result = _gain_passes(req, pairs, bias)
+    pairs = choose_pairs(comp.resistor_pool, target.gain, n, topo, comp.impedance_ohm, rs,
+                         correction=_midband_estimate(req, pairs) / ideal_product,
+                         min_noise_gain=stable, first_gain=first)
+    pairs, circuit, result = _gain_passes(req, pairs, bias, first)
     for _ in range(BIAS_ROUNDS):
-        if bias is None:
+        if bias is None or not ac:
             break
         settled, reason = _settle_bias(req, pairs, bias)
         if settled == bias:
             break
+        # the gain passes run again against the bias network they will be built with
         bias, bias_reason = settled, reason
-        pairs, circuit, result = _gain_passes(req, pairs, bias)
-    return Synthesis(circuit=circuit, as_built=as_built(circuit), bias_reason=bias_reason)
+        pairs, circuit, result = _gain_passes(req, pairs, bias, first)
+    circuit = band_limit.limit_band(req, circuit, f_high_aim_hz=aim.f_high_hz)
+    if ac and any(st.c_feedback_f is not None for st in circuit.stages):
+        circuit = _with_band_limit(req, pairs, circuit, aim.f_high_hz, first)
+    # per-stage figures only for the design returned (design() adds them)
+    return Synthesis(circuit=circuit, as_built=as_built(circuit, per_stage=False),
+                     bias_reason=bias_reason)
 
 
 #: Rounds of (settle the bias, redo the gain passes on it); the second rarely changes more.
 BIAS_ROUNDS = 2
 
 
-def _gain_passes(req: DesignRequest, pairs, bias):
+def _gain_passes(req: DesignRequest, pairs, bias, first=None):
     """Size the low side for ``pairs`` on ``bias``, measure the gain product on the full
     model and re-choose the last pairs while that promises a better product; the best pass
-    is kept. Returns ``(pairs, circuit, as_built)``."""
+    is kept. ``first`` is stage 1's gain of a ``low_noise`` split. Returns ``(pairs,
+    circuit, as_built)``."""
     comp = req.components
     topo = req.topology
     target = req.target
@@ -291,13 +332,41 @@ def _gain_passes(req: DesignRequest, pairs, bias):
         ideal_product = math.prod(_pair_gain(p, topo, rs, k) for k, p in enumerate(pairs))
         new = choose_pairs(comp.resistor_pool, target.gain, n, topo, comp.impedance_ohm, rs,
                            correction=result.gain / ideal_product, previous=pairs,
-                           min_noise_gain=req.opamp.min_stable_gain)
+                           min_noise_gain=req.opamp.min_stable_gain, first_gain=first)
         new_product = math.prod(_pair_gain(p, topo, rs, k) for k, p in enumerate(new))
         predicted = abs(math.log(target.gain / (result.gain * new_product / ideal_product)))
         if tuple(new) in tried or predicted >= err - GAIN_PASS_MIN_IMPROVEMENT:
             break
         pairs = new
     return best[1], best[2], best[3]
+
+
+def _with_band_limit(req: DesignRequest, pairs, circuit: Circuit, f_high_aim_hz, first):
+    """The low side sized again with the band-limiting capacitors in place (a narrow band's
+    peak then lies inside the target without oversized capacitors), the band limit redone
+    on it, and the last two gain pairs re-chosen while the skirts' loss of midband gain
+    (measured on the nodal model) leaves the product off the target."""
+    comp = req.components
+    rs = req.signal.source_impedance_ohm
+    best = None
+    for _ in range(GAIN_PASSES):
+        caps = [st.c_feedback_f for st in circuit.stages]
+        circuit = band_limit.limit_band(req, _with_low_side(req, pairs, circuit.bias, caps),
+                                        f_high_aim_hz=f_high_aim_hz)
+        gain = as_built(circuit, per_stage=False).gain
+        err = abs(math.log(req.target.gain / gain))
+        if best is None or err < best[0]:
+            best = (err, circuit)
+        ideal_product = math.prod(_pair_gain(p, req.topology, rs, k)
+                                  for k, p in enumerate(pairs))
+        new = choose_pairs(comp.resistor_pool, req.target.gain, len(pairs), req.topology,
+                           comp.impedance_ohm, rs, correction=gain / ideal_product,
+                           previous=pairs, min_noise_gain=req.opamp.min_stable_gain,
+                           first_gain=first)
+        if err < 1e-4 or new == pairs:
+            break
+        pairs = new
+    return best[1]
 
 
 #: Stand-in for "short at midband" when predicting the midband gain before sizing.
@@ -499,8 +568,9 @@ def _circuit(req: DesignRequest, stages, bias, c_out) -> Circuit:
     )
 
 
-def _with_low_side(req: DesignRequest, pairs, bias) -> Circuit:
-    """Size the coupling, ground-leg and output capacitors (module docstring, step 2)."""
+def _with_low_side(req: DesignRequest, pairs, bias, c_feedback=None) -> Circuit:
+    """Size the coupling, ground-leg and output capacitors (module docstring, step 2), with
+    the band-limiting capacitors ``c_feedback`` (one per stage) in place when given."""
     comp = req.components
     cser, rser = comp.capacitor_pool, comp.resistor_pool
     n = len(pairs)
@@ -549,7 +619,8 @@ def _with_low_side(req: DesignRequest, pairs, bias) -> Circuit:
     candidates = [int(i) for i in order if ok[i]] or [int(order[-1])]
 
     def build(j: int) -> Circuit:
-        return _pick(req, pairs, bias, cc, rb, cg, c_out, candidates[j])
+        picked = _pick(req, pairs, bias, cc, rb, cg, c_out, candidates[j])
+        return picked if c_feedback is None else band_limit.with_c_feedback(picked, c_feedback)
 
     def good(j: int) -> bool:
         circuit = build(j)
@@ -623,8 +694,7 @@ def _f_low_estimates(params: chain.ChainParams, req: DesignRequest) -> np.ndarra
     x0, x1 = np.log(grid[j]), np.log(grid[j + 1])
     with np.errstate(divide="ignore", invalid="ignore"):
         x = np.where(m1 != m0, x0 - m0 * (x1 - x0) / (m1 - m0), x0)
-    with np.errstate(over="ignore"):  # degenerate extrapolation -> inf, which fails the f_low test
-        est = np.exp(x)
+    est = np.exp(x)
     est = np.where(below.any(axis=1), est, 0.0)
     return est
 
@@ -676,11 +746,19 @@ def _ideal_f_high_hz(req: DesignRequest, n: int) -> float:
                                req.topology).f_high_hz
 
 
+#: Auto mode tries at most this many stages beyond the fewest that reach the target
+#: ideally (more stages than that add parts, noise and supply ripple gain for nothing a
+#: practising engineer would trade them for; band_limit.EXTRA_STAGES is the same margin).
+AUTO_EXTRA_STAGES = 3
+
+
 def stage_counts_to_try(req: DesignRequest) -> list[int]:
     """Auto mode: stage counts in increasing order whose ideal f_high can reach the target
-    and whose stage noise gain the op-amp tolerates."""
-    return [n for n in range(1, ideal.MAX_STAGES + 1) if _stable(req, n)
-            and _ideal_f_high_hz(req, n) >= IDEAL_REACH_FRACTION * req.target.f_high_hz]
+    and whose stage noise gain the op-amp tolerates, up to ``AUTO_EXTRA_STAGES`` beyond the
+    first."""
+    counts = [n for n in range(1, ideal.MAX_STAGES + 1) if _stable(req, n)
+              and _ideal_f_high_hz(req, n) >= IDEAL_REACH_FRACTION * req.target.f_high_hz]
+    return [n for n in counts if n <= counts[0] + AUTO_EXTRA_STAGES] if counts else []
 
 
 def best_reach(req: DesignRequest) -> int:
@@ -694,10 +772,14 @@ def _no_deadline(where: str | None = None) -> None:
 
 
 def judge_synthesis(req: DesignRequest, syn: Synthesis, *, startup: bool = True) -> Judgement:
-    """The verdict on a synthesised circuit at the request's conditions and limits."""
+    """The verdict on a synthesised circuit at the request's conditions, limits and
+    tolerances (its predicted yield included)."""
+    est = syn.yield_estimate or yield_estimate.predict(syn.circuit, req.target,
+                                                       tolerances_of(req.components))
     return judge(syn.circuit, syn.as_built, target=req.target,
                  input_peak_v=req.signal.input_peak_v, limits=req.limits,
-                 supply_rejection_hz=req.supply_rejection_hz, startup=startup)
+                 supply_rejection_hz=req.supply_rejection_hz, startup=startup,
+                 yield_est=est)
 
 
 def design(req: DesignRequest, *, check_deadline=None) -> Design:
@@ -718,13 +800,22 @@ def design(req: DesignRequest, *, check_deadline=None) -> Design:
     else:
         tried: dict[int, tuple[Synthesis, Judgement]] = {}
         syn = None
+        first_met = None  # fewest stages meeting everything, before the band-limit rule
         for n in stage_counts_to_try(req):
             check_deadline("design")
             cand = synthesize(req, n)
             tried[n] = (cand, judge_synthesis(req, cand, startup=False))
             if tried[n][1].meets_target:
-                syn = cand
+                first_met = first_met or cand
+                # with f_high_max_hz: more stages until the upper corner holds against
+                # the op-amp's GBW spread (synthesis.band_limit)
+                if band_limit.holds_against_gbw(req, cand.circuit):
+                    syn = cand
+                    break
+            if first_met is not None and \
+                    n >= first_met.circuit.n_stages + band_limit.EXTRA_STAGES:
                 break
+        syn = syn or first_met
         if syn is None:
             # none meets everything: the best of those tried and of the best reach's
             # neighbourhood (the stage counts a practising engineer would weigh)
@@ -738,6 +829,7 @@ def design(req: DesignRequest, *, check_deadline=None) -> Design:
                 cand = synthesize(req, reach)
                 tried[reach] = (cand, judge_synthesis(req, cand, startup=False))
             syn = best_of(tried)
+    syn = replace(syn, as_built=as_built(syn.circuit))  # with the per-stage figures
     n = syn.circuit.n_stages
     ic = ideal.ideal_cascade(req.target.gain, req.target.f_low_hz, req.opamp.gbw_hz, n,
                              req.topology)
