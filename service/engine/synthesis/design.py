@@ -545,7 +545,8 @@ def _bias_reason(start: Bias, chosen: Bias) -> str | None:
                      f"{chosen.r_bottom_ohm:.4g} ohm")
     if chosen.c_bypass_f != start.c_bypass_f:
         parts.append(f"the bypass was enlarged to {chosen.c_bypass_f * 1e6:.4g} uF")
-    return ("; ".join(parts).capitalize() + ": the shared bias node must keep the response "
+    text = "; ".join(parts)
+    return (text[:1].upper() + text[1:] + ": the shared bias node must keep the response "
             "free of low-frequency peaking and attenuate supply ripple to the limit.")
 
 
