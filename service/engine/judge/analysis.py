@@ -347,11 +347,5 @@ def circuit_warnings(circuit: Circuit) -> list:
 
 
 def _capacitors(circuit: Circuit) -> list:
-    caps = []
-    for st in circuit.stages:
-        caps += [c for c in (st.c_couple_f, st.c_gain_f) if c is not None]
-    if circuit.c_out_f is not None:
-        caps.append(circuit.c_out_f)
-    if circuit.bias is not None:
-        caps.append(circuit.bias.c_bypass_f)
-    return caps
+    """Every capacitor value of the board's signal path and bias network."""
+    return [value for value, _, _ in passive_parts(circuit)[0]]
