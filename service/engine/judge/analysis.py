@@ -23,6 +23,7 @@ from functools import lru_cache
 import numpy as np
 from scipy.optimize import brentq
 
+from service.engine.judge.checks import passive_parts
 from service.engine.model.circuit import NON_INVERTING, Circuit, Target
 from service.engine.solver import chain, corners
 
