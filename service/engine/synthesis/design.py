@@ -848,11 +848,13 @@ def fallback_counts(req: DesignRequest) -> list[int]:
 
 def best_of(tried: dict) -> Synthesis:
     """Among ``{n: (synthesis, judgement)}`` none of which meets everything: the one that
-    meets the gain and band target if any, then with the fewest failed checks, then with
-    the highest as-built f_high, then the fewest stages."""
+    meets the gain and band target if any, then with the fewest failed checks, then (target
+    met) the fewest stages or (target missed) the highest as-built f_high."""
     def rank(n):
         syn, jd = tried[n]
         target_misses = sum(1 for s in jd.shortfalls
                             if s["quantity"] in ("gain_db", "f_low_hz", "f_high_hz"))
-        return (target_misses > 0, len(jd.shortfalls), -syn.as_built.f_high_hz, n)
+        # a met target: the fewest stages; a missed one: the widest band
+        reach = -syn.as_built.f_high_hz if target_misses else n
+        return (target_misses > 0, len(jd.shortfalls), reach, n)
     return tried[min(sorted(tried), key=rank)][0]
