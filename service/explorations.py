@@ -63,16 +63,6 @@ def _auto_count(body: dict) -> int:
     return design_mod.design(req, check_deadline=budget.checker()).synthesis.circuit.n_stages
 
 
-def _supply_current(design: dict, circuit: Circuit) -> float:
-    """The ``supply_current`` check's value when the design reports one, else the engine's
-    DC budget (``service.engine.judge.supply``)."""
-    for check in design.get("checks") or []:
-        if isinstance(check, dict) and check.get("check") == "supply_current" \
-                and check.get("value") is not None:
-            return float(check["value"])
-    return supply_current_a(circuit)
-
-
 def _candidate(opamp_id, n: int, design: dict, body: dict) -> dict:
     circuit = Circuit.from_dict(design["circuit"])
     req, _ = load_design_request(body)
@@ -88,7 +78,7 @@ def _candidate(opamp_id, n: int, design: dict, body: dict) -> dict:
         "opamp_packages": circuit.opamp_packages,
         "output_noise_rms_v": (noise.get("output_rms_v") or {}).get("band"),
         "input_noise_rms_v": noise.get("input_rms_v"),
-        "supply_current_a": _supply_current(design, circuit),
+        "supply_current_a": supply_current_a(circuit),  # the supply_current check's figure
         "yield": design.get("yield"),
         "bom_cost": design.get("bom_cost"),
     }

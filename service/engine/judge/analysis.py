@@ -246,8 +246,7 @@ def headroom(circuit: Circuit, checks: list, input_peak_v: float) -> Headroom:
         available = max(0.0, swing.limit - dc_error)
         headroom_db = 20.0 * math.log10(available / peak) if available > 0 and peak > 0 \
             else (math.inf if peak <= 0 else -math.inf)
-        plus_dc, plus_err = cm.extra["dc_v"], cm.extra["dc_error_v"]
-        cm_peak = cm.value
+        plus_dc, cm_peak = cm.extra["dc_v"], cm.value
         row = {
             "stage": k,
             "output_dc_v": dc_v,
@@ -267,7 +266,6 @@ def headroom(circuit: Circuit, checks: list, input_peak_v: float) -> Headroom:
             "cm_window_v": [cm_lo, cm_hi],
             "cm_ok": bool(cm.passed),
         }
-        del plus_err
         rows.append(row)
         if swing.passed and 0 <= headroom_db < LOW_HEADROOM_DB:
             warnings.append(("low_headroom",
@@ -311,15 +309,6 @@ def target_shortfalls(ab: AsBuilt, target: Target) -> list:
         shortfalls.append({"quantity": "f_low_min_hz", "stage": None,
                            "target": target.f_low_min_hz, "achieved": f_low})
     return shortfalls
-
-
-def status_of(ab: AsBuilt, target: Target, circuit: Circuit | None = None) -> tuple[str, list]:
-    """The target figures alone (no build check): ``meets_target`` when
-    :func:`target_shortfalls` finds none. ``circuit`` is accepted for callers that pass it;
-    the checks, stability included, are :func:`verdict`'s."""
-    del circuit
-    shortfalls = target_shortfalls(ab, target)
-    return ("meets_target" if not shortfalls else "target_not_met"), shortfalls
 
 
 def verdict(ab: AsBuilt, target: Target, checks: list) -> tuple[str, list]:

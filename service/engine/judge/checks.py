@@ -41,6 +41,7 @@ import numpy as np
 from scipy.optimize import brentq
 
 from service.engine.judge import dc_errors
+from service.engine.judge.supply import supply_current_a
 from service.engine.judge.supply_rejection import RIPPLE_FREQUENCIES_HZ
 from service.engine.model.circuit import INVERTING, Circuit, Limits, Target
 from service.engine.model.spares import spare_units
@@ -360,25 +361,6 @@ def _part_checks(circuit: Circuit, limits: Limits) -> list[Check]:
     return out
 
 
-# ------------------------------------------------------------------ supply current
-
-
-def supply_current_a(circuit: Circuit, op_point: dict | None = None) -> float:
-    """DC current from the supply (A): every op-amp unit's ``iq_a`` (signal stages, VMID
-    follower and spare units), the divider ``v_pos / (Rt + Rb)`` and the load's DC current
-    at the operating point (0 behind an output capacitor)."""
-    op = circuit.opamp
-    units = circuit.n_stages + (1 if circuit.bias is not None and circuit.bias.buffered else 0)
-    units += len(spare_units(circuit))
-    current = units * op.iq_a
-    if circuit.bias is not None:
-        current += circuit.supply.v_pos / (circuit.bias.r_top_ohm + circuit.bias.r_bottom_ohm)
-    if circuit.c_out_f is None and op_point is not None:
-        ref = op_point[reference_node(circuit)]
-        current += abs(op_point[f"O{circuit.n_stages}"] - ref) / circuit.load_ohm
-    return current
-
-
 # ------------------------------------------------------------------ all checks
 
 
@@ -481,7 +463,7 @@ def run_checks(circuit: Circuit, ctx: CheckContext, *, startup: bool = True) -> 
                 f"{op.output_current_max_a * 1e3:.3g} mA."))
     checks.append(_startup_check(circuit, system, ctx.limits, startup))
     checks.append(_input_impedance_check(circuit, system, ctx))
-    amps = supply_current_a(circuit, errors[0].op_point if errors else None)
+    amps = supply_current_a(circuit)
     checks.append(Check(
         "supply_current", None, amps, ctx.limits.max_current_a, "A",
         _at_most(amps, ctx.limits.max_current_a),
@@ -528,18 +510,15 @@ def _input_impedance_check(circuit: Circuit, system: MnaSystem, ctx: CheckContex
                  + ("" if limit is None else f"; at least {limit:.4g} ohm asked") + ".")
 
 
-def failing(checks: list[Check]) -> list[Check]:
-    """Checks with a limit that did not pass."""
-    return [c for c in checks if c.passed is False]
-
-
-__all__ = ["Check", "CheckContext", "run_checks", "failing", "supply_current_a",
+__all__ = ["Check", "CheckContext", "run_checks",
            "CHECK_ORDER", "passive_parts", "noise_gain_at_crossover", "signal_band_hz"]
 
 
-def ripple_excess_db(circuit: Circuit, ctx: CheckContext) -> float:
+def ripple_excess_db(circuit: Circuit, ctx: CheckContext,
+                     system: MnaSystem | None = None) -> float:
     """How far (dB) the worst ``supply_ripple`` entry sits above its limit (negative: the
-    margin by which all pass; ``-inf`` when the circuit has no ripple path)."""
-    entries = _ripple_checks(build(circuit), circuit, ctx.limits, ripple_band_hz(ctx),
-                             ctx.ripple_frequencies_hz)
+    margin by which all pass; ``-inf`` when the circuit has no ripple path). ``system``:
+    the circuit's MNA system when the caller has built it already."""
+    entries = _ripple_checks(system or build(circuit), circuit, ctx.limits,
+                             ripple_band_hz(ctx), ctx.ripple_frequencies_hz)
     return max((c.value - c.limit for c in entries), default=-math.inf)

@@ -31,7 +31,6 @@ class StageDc:
     out_error_v: float
     plus_dc_v: float
     plus_error_v: float
-    op_point: dict
 
 
 def stage_dc_errors(circuit: Circuit, system: MnaSystem | None = None) -> list[StageDc]:
@@ -49,6 +48,5 @@ def stage_dc_errors(circuit: Circuit, system: MnaSystem | None = None) -> list[S
             out_error_v=sens[nd.out].worst_case_v(op.vos_v, op.ib_a),
             plus_dc_v=point[nd.plus],
             plus_error_v=sens[nd.plus].worst_case_v(op.vos_v, op.ib_a),
-            op_point=point,
         ))
     return out

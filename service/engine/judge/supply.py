@@ -4,8 +4,9 @@
 resistive DC paths, signal currents left out):
 
 * ``U``: every op-amp unit on the board, spare units of the last package included (they are
-  powered and wired as followers), i.e. packages x ``channels_per_package``; ``iq_a`` is the
-  op-amp's quiescent current per unit (0 when the op-amp does not give it);
+  powered, and wired to REF: :mod:`service.engine.model.spares`), i.e. packages x
+  ``channels_per_package``; ``iq_a`` is the op-amp's quiescent current per unit (0 when
+  the op-amp does not give it);
 * ``I_divider = v_pos / (r_top_ohm + r_bottom_ohm)`` (Ohm's law) on a single supply, 0 on a
   dual one (no bias network);
 * ``I_load``: the DC across the load over ``load_ohm``. With an output capacitor the load
@@ -19,18 +20,10 @@ from __future__ import annotations
 from service.engine.model.circuit import Circuit
 
 
-def load_dc_current_a(circuit: Circuit) -> float:
-    """DC current through the load (see the module docstring): 0 in this model."""
-    if circuit.c_out_f is not None:
-        return 0.0
-    v_out_dc = v_return_dc = 0.0  # both ends at REF, measured from REF
-    return abs(v_out_dc - v_return_dc) / circuit.load_ohm
-
-
 def supply_current_a(circuit: Circuit) -> float:
     """Total DC current from the positive rail in amperes (module docstring)."""
     units = circuit.opamp_packages * circuit.opamp.channels_per_package
     current = units * circuit.opamp.iq_a
     if circuit.bias is not None:
         current += circuit.supply.v_pos / (circuit.bias.r_top_ohm + circuit.bias.r_bottom_ohm)
-    return current + load_dc_current_a(circuit)
+    return current  # the load carries no DC in this model (module docstring)

@@ -49,14 +49,9 @@ class SpareUnit:
         return 1.0 + self.r_feedback_ohm / self.r_gain_ohm
 
 
-def used_units(circuit: Circuit) -> int:
-    """Signal stages plus the VMID follower when buffered."""
-    return circuit.n_stages + (1 if circuit.bias is not None and circuit.bias.buffered else 0)
-
-
 def spare_count(circuit: Circuit) -> int:
     """Units left over in the last package: ``ceil(u / c) c - u``."""
-    used = used_units(circuit)
+    used = circuit.opamp_units
     channels = circuit.opamp.channels_per_package
     return math.ceil(used / channels) * channels - used
 
@@ -74,6 +69,6 @@ def spare_network(min_stable_gain: float) -> tuple[float | None, float | None]:
 
 def spare_units(circuit: Circuit) -> list[SpareUnit]:
     """The spare units of the circuit's packages, in package order."""
-    first = used_units(circuit)
+    first = circuit.opamp_units
     rf, rg = spare_network(circuit.opamp.min_stable_gain)
     return [SpareUnit(first + i, rf, rg) for i in range(spare_count(circuit))]

@@ -29,7 +29,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from service.engine.judge import yield_estimate
-from service.engine.judge.analysis import status_of
+from service.engine.judge.analysis import target_shortfalls
 from service.engine.model.circuit import DesignRequest
 from service.engine.model.parts import tolerances_of
 from service.engine.synthesis import band_limit
@@ -80,7 +80,7 @@ def centre(req: DesignRequest, build):
     syn = build(aim)
     est = yield_estimate.predict(syn.circuit, target, tol, peaking=False)
     passes = [(aim, syn, est)]
-    _, misses = status_of(syn.as_built, target, syn.circuit)
+    misses = target_shortfalls(syn.as_built, target)
     if any(m["quantity"] not in CENTRABLE for m in misses):
         # e.g. the op-amp's bandwidth misses the target: no aim of the corners fixes that
         return replace(syn, yield_estimate=yield_estimate.predict(syn.circuit, target, tol))

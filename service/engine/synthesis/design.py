@@ -478,13 +478,14 @@ def _bias_quality(req: DesignRequest, pairs, bias: Bias) -> tuple[bool, float]:
     :func:`service.engine.judge.checks.ripple_excess_db` (<= 0 passes)."""
     circuit = _with_low_side(req, pairs, bias)
     ab = as_built(circuit, per_stage=False)
+    system = build_mna(circuit)
     flat = flat_outside_band(ab, req.target, circuit) and \
-        checks.growth_rate_per_s(build_mna(circuit)) <= 0.0
+        checks.growth_rate_per_s(system) <= 0.0
     ctx = checks.CheckContext(
         input_peak_v=req.signal.input_peak_v, target=req.target, limits=req.limits,
         f_low_hz=ab.f_low_hz, f_high_hz=ab.f_high_hz, peak_hz=ab.peak_hz,
         ripple_frequencies_hz=ripple_frequencies(req.supply_rejection_hz))
-    return flat, checks.ripple_excess_db(circuit, ctx)
+    return flat, checks.ripple_excess_db(circuit, ctx, system)
 
 
 def _settle_bias(req: DesignRequest, pairs, bias: Bias) -> tuple[Bias, str | None]:
