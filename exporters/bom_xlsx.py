@@ -7,7 +7,8 @@
   written with ``data_type = "s"`` (openpyxl would store a leading ``=`` as a formula), line
   breaks and tabs removed; one that starts like a formula also gets the quote-prefix style
   flag instead of the CSV's visible apostrophe (OWASP CSV-injection guidance).
-* ``Design``: the cautions line, target vs ideal vs as-built, the per-stage table, headroom,
+* ``Design``: the cautions line, target vs ideal vs as-built, the per-stage table,
+  shortfalls, predicted yield and the build checks, headroom,
   bias and warnings (from the design response when there is one; otherwise the as-built band
   of the circuit from the engine).
 * ``Response``: frequency, gain (dB) and phase (degrees) of Vout/Vs from the engine's nodal
@@ -180,6 +181,7 @@ def _design_sheet(ws, board: Board, report: dict | None, edges: BandEdges) -> No
         header_rows.add(len(rows))
         for k, stage in enumerate(stages, start=1):
             rows.append([k] + [stage.get(key) for key in keys])
+    rows += _verdict_rows(report, header_rows, len(rows))
     for title in ("headroom", "bias"):
         if report.get(title):
             rows += [[], [title, "value"]]
@@ -196,6 +198,33 @@ def _design_sheet(ws, board: Board, report: dict | None, edges: BandEdges) -> No
             if r in header_rows:
                 cell.font = _BOLD
     _widths(ws, cap=90)
+
+
+#: Columns of the build-check table (the response's ``checks`` entries, README "Build checks").
+CHECK_COLUMNS = ("check", "stage", "value", "limit", "unit", "passed", "detail")
+
+
+def _verdict_rows(report: dict, header_rows: set, start: int) -> list[list]:
+    """Rows for the shortfalls, the predicted yield and the build checks of a design
+    response (none for a bare circuit); header rows are added to ``header_rows``."""
+    rows: list[list] = []
+    shortfalls = report.get("shortfalls") or []
+    if shortfalls:
+        rows += [[], ["shortfall", "stage", "achieved", "target"]]
+        header_rows.add(start + len(rows))
+        rows += [[s.get("quantity"), s.get("stage"), s.get("achieved"), s.get("target")]
+                 for s in shortfalls]
+    est = report.get("yield")
+    if est:
+        rows += [[], ["yield", "predicted", "min_yield", "method"]]
+        header_rows.add(start + len(rows))
+        rows.append(["", est.get("predicted"), est.get("min_yield"), est.get("method")])
+    checks = report.get("checks") or []
+    if checks:
+        rows += [[], list(CHECK_COLUMNS)]
+        header_rows.add(start + len(rows))
+        rows += [[c.get(key) for key in CHECK_COLUMNS] for c in checks]
+    return rows
 
 
 def _flatten(value, prefix: str = ""):

@@ -160,3 +160,23 @@ def test_hostile_names_give_safe_filenames_and_inert_files(client, name):
         assert not filename.startswith((".", "-"))  # no hidden file, no command option
     deck = _export(client, "netlist.cir", body).get_data(as_text=True)
     assert ".control" not in "\n".join(deck.splitlines()[1:]).lower()
+
+
+def test_xlsx_design_sheet_lists_the_verdict(client):
+    # The workbook an engineer opens shows the same build checks and yield as the design
+    # response (read back with python-calamine, an independent xlsx reader).
+    design = client.post("/v1/designs", json=README_SCENARIO).get_json()
+    resp = _export(client, "bom.xlsx", README_SCENARIO)
+    rows = CalamineWorkbook.from_filelike(io.BytesIO(resp.data)) \
+        .get_sheet_by_name("Design").to_python()
+    header = ["check", "stage", "value", "limit", "unit", "passed", "detail"]
+    start = next(i for i, row in enumerate(rows) if row[:7] == header)
+    listed = rows[start + 1:start + 1 + len(design["checks"])]
+    assert [row[0] for row in listed] == [c["check"] for c in design["checks"]]
+    assert [row[6] for row in listed] == [c["detail"] for c in design["checks"]]
+    for row, c in zip(listed, design["checks"], strict=True):
+        if c["value"] is not None:
+            assert row[2] == pytest.approx(c["value"], rel=1e-12)
+    (yield_row,) = [rows[i + 1] for i, row in enumerate(rows) if row[:2] == ["yield",
+                                                                             "predicted"]]
+    assert yield_row[1] == pytest.approx(design["yield"]["predicted"], rel=1e-12)
