@@ -29,6 +29,7 @@ evaluates many trials (shape ``(trials, 1)`` against ``(1, frequencies)``).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 
@@ -37,9 +38,9 @@ from service.engine.model.circuit import INVERTING, Circuit
 TWO_PI = 2.0 * np.pi
 
 
-@dataclass(frozen=True)
-class Affine:
-    """A node voltage ``a + b * v_ref`` (per unit of source voltage)."""
+class Affine(NamedTuple):
+    """A node voltage ``a + b * v_ref`` (per unit of source voltage); a named tuple, which
+    is cheaper to build than a dataclass on the scalar path."""
 
     a: np.ndarray
     b: np.ndarray
@@ -140,14 +141,46 @@ def solve(circuit: Circuit, f_hz) -> ChainSolution:
     return solve_params(params_from_circuit(circuit), f_hz)
 
 
+def magnitude(circuit: Circuit):
+    """``f_hz -> |Vout / Vs|`` of the circuit, for any shape of ``f_hz``.
+
+    The same nodal solution as :func:`solve`; a handful of frequencies (the refinement
+    steps of a corner or a peak) are solved one at a time on Python complex numbers, which skips the
+    per-call cost of small arrays (about 10x faster below five points).
+    """
+    p = params_from_circuit(circuit)
+
+    def mag(f_hz):
+        f = np.asarray(f_hz, dtype=float)
+        if f.size > SCALAR_POINTS_MAX:
+            return np.abs(solve_params(p, f).vout)
+        out = np.empty(f.shape)
+        for i, fi in np.ndenumerate(f):
+            out[i] = abs(solve_params(p, float(fi)).vout)
+        return out
+
+    return mag
+
+
+#: Up to this many frequencies, :func:`magnitude` solves point by point on scalars.
+SCALAR_POINTS_MAX = 4
+
+
 def solve_params(p: ChainParams, f_hz) -> ChainSolution:
-    """Solve a :class:`ChainParams` (values may be arrays of trials) at ``f_hz``."""
-    s = 1j * TWO_PI * np.asarray(f_hz, dtype=float)
-    zero = np.zeros(np.broadcast(s, p.load_ohm).shape, dtype=complex)
+    """Solve a :class:`ChainParams` (values may be arrays of trials) at ``f_hz``.
+
+    With a positive float ``f_hz`` and scalar values the whole solution is Python complex
+    numbers (the same arithmetic, without array overhead)."""
+    if isinstance(f_hz, float) and f_hz > 0.0 and isinstance(p.load_ohm, float):
+        s = complex(0.0, TWO_PI * f_hz)
+        zero = 0j
+    else:
+        s = 1j * TWO_PI * np.asarray(f_hz, dtype=float)
+        zero = np.zeros(np.broadcast(s, p.load_ohm).shape, dtype=complex)
     one = zero + 1.0
     # Currents injected into REF, as affine forms in v_ref (a + b v_ref).
-    inj_a = zero.copy()
-    inj_b = zero.copy()
+    inj_a = zero
+    inj_b = zero
     stage_in: list[Affine] = []
     stage_out: list[Affine] = []
     x: Affine | None = None
