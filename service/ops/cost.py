@@ -8,7 +8,8 @@ that a few of them cannot hold every worker for the whole budget.
 Cost is counted in *units*; one unit is one Monte Carlo trial through one stage-sized
 block of the circuit, about 6.5 us on one core of the 2-core build machine (measured
 through the app's tolerance Monte Carlo: 12 stages x 30,000 trials in 2.6 s, 2 stages x
-100,000 trials in 2.7 s; ``make bench`` prints today's per-trial figures). A request may use at most ``GAINCHAIN_MAX_COST_UNITS`` units
+100,000 trials in 2.7 s; ``make bench`` prints today's per-trial figures). A request may
+use at most ``GAINCHAIN_MAX_COST_UNITS`` units
 (default :data:`DEFAULT_MAX_COST_UNITS`, about two seconds on one core):
 
 * a design or an analysis: :data:`DESIGN_UNITS` (the synthesis and the fixed analyses),

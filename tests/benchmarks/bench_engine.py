@@ -82,8 +82,10 @@ def clear_result_caches() -> None:
     """Forget per-circuit results (a new request starts cold); the E-series tables and the
     fixed yield draws stay, as in a running worker."""
     from service.engine.judge import analysis
+    from service.engine.synthesis import design
 
     analysis._as_built_cached.cache_clear()
+    design._low_side_cached.cache_clear()
 
 
 def timed(fn) -> tuple[float, float, object]:

@@ -88,7 +88,7 @@ def compute_as_built(circuit: Circuit, *, per_stage: bool = True) -> AsBuilt:
     skips them (their entries are then empty), for the synthesis loop that only needs the
     overall figures.
     """
-    band = corners.find_band(chain.magnitude(circuit), 1)
+    band = corners.find_band_one(chain.magnitude(circuit))
     peak_hz = float(band.peak_hz[0])
     sol = chain.solve(circuit, np.array([peak_hz]))
     inverted = bool(np.real(sol.vout[0]) < 0)

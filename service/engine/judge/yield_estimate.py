@@ -102,6 +102,17 @@ def _uniform_draws(parts_count: int) -> np.ndarray:
     return draws
 
 
+@lru_cache(maxsize=32)
+def _log_draws(half: tuple) -> tuple[np.ndarray, np.ndarray]:
+    """``(z, z^2)`` with ``z = ln(1 + t u)`` for the fixed draws and the parts' half-widths
+    ``half`` (cached: a design's passes share their parts list; read-only)."""
+    z = np.log1p(_uniform_draws(len(half)) * np.asarray(half)[None, :])
+    z2 = z * z
+    z.flags.writeable = False
+    z2.flags.writeable = False
+    return z, z2
+
+
 def limits_of(target: Target) -> dict:
     """``{figure: (low, high)}`` of the target (None: open side)."""
     return {
@@ -157,8 +168,8 @@ def predict(circuit: Circuit, target: Target, tolerances: parts_mod.Tolerances, 
     ``peaking=False`` skips the exact peaking check (a quicker estimate for searches)."""
     parts, half, y0, sens, curv = sensitivities(circuit, tolerances)
     if len(parts):
-        z = np.log1p(_uniform_draws(len(parts)) * half[None, :])
-        dy = z @ sens + 0.5 * (z * z) @ curv  # (SAMPLES, 3)
+        z, z2 = _log_draws(tuple(half.tolist()))
+        dy = z @ sens + 0.5 * z2 @ curv  # (SAMPLES, 3)
     else:
         dy = np.zeros((SAMPLES, 3))
     y = y0[None, :] + dy

@@ -142,7 +142,7 @@ def solve(circuit: Circuit, f_hz) -> ChainSolution:
 
 
 def magnitude(circuit: Circuit):
-    """``f_hz -> |Vout / Vs|`` of the circuit, for any shape of ``f_hz``.
+    """``f_hz -> |Vout / Vs|`` of the circuit, for any shape of ``f_hz`` or one float.
 
     The same nodal solution as :func:`solve`; a handful of frequencies (the refinement
     steps of a corner or a peak) are solved one at a time on Python complex numbers, which skips the
@@ -151,6 +151,8 @@ def magnitude(circuit: Circuit):
     p = params_from_circuit(circuit)
 
     def mag(f_hz):
+        if isinstance(f_hz, float):
+            return abs(solve_params(p, f_hz).vout)
         f = np.asarray(f_hz, dtype=float)
         if f.size > SCALAR_POINTS_MAX:
             return np.abs(solve_params(p, f).vout)

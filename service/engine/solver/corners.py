@@ -17,6 +17,7 @@ result has the same shape (row b is batch member b).
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -160,3 +161,106 @@ def _illinois(g, a, b, ga, gb):
         a, ga = a_new, ga_new
         b, gb = c, gc
     return b
+
+
+def find_band_one(magnitude_at, grid_hz: np.ndarray = GRID_HZ) -> Band:
+    """:func:`find_band` for one response, the refinements run on Python floats.
+
+    ``magnitude_at(f)`` takes an array of frequencies (the grid) or one float (a refinement
+    step) and returns ``|H|`` of the same shape. Same grid, brackets, parabolic steps and
+    Illinois steps as the batched search, so both agree to rounding (the tests compare
+    them); a single circuit's corners cost a dozen point solves instead of a dozen
+    small-array passes.
+    """
+    mag = np.asarray(magnitude_at(grid_hz), dtype=float)
+    n = grid_hz.size
+    k = int(np.argmax(mag))
+    peak_f, peak = _refine_peak_one(magnitude_at, grid_hz, mag, k)
+    thr = peak * HALF_POWER
+    log_thr = _log(thr)
+    below = mag < thr
+
+    def g(x: float) -> float:
+        return _log(magnitude_at(math.exp(x))) - log_thr
+
+    def root(a: int, b: int) -> float:
+        xa, xb = math.log(grid_hz[a]), math.log(grid_hz[b])
+        return math.exp(_illinois_one(g, xa, xb, _log(mag[a]) - log_thr,
+                                      _log(mag[b]) - log_thr))
+
+    lows = np.flatnonzero(below[:k])
+    highs = np.flatnonzero(below[k + 1:])
+    f_low = root(int(lows[-1]), min(int(lows[-1]) + 1, n - 1)) if lows.size else math.nan
+    if highs.size:
+        j = min(k + 1 + int(highs[0]), n - 1)
+        f_high = root(max(j - 1, 0), j)
+    else:
+        f_high = math.nan
+    lo_edge = f_low if lows.size else 0.0
+    hi_edge = f_high if highs.size else math.inf
+    outside = (grid_hz < lo_edge) | (grid_hz > hi_edge)
+    rel = float(np.max(mag, where=outside, initial=0.0)) / peak
+    outside_db = 20.0 * math.log10(rel) if rel > 0.0 else -math.inf
+    return Band(gain=np.array([peak]), f_low_hz=np.array([f_low]),
+                f_high_hz=np.array([f_high]), peak_hz=np.array([peak_f]),
+                outside_max_db=np.array([outside_db]))
+
+
+def _refine_peak_one(magnitude_at, grid_hz, mag, k):
+    """:func:`_refine_peak` for one response, on floats."""
+    n = grid_hz.size
+    k = min(max(k, 1), n - 2)
+    x = [math.log(grid_hz[k - 1]), math.log(grid_hz[k]), math.log(grid_hz[k + 1])]
+    y = [_log(mag[k - 1]), _log(mag[k]), _log(mag[k + 1])]
+    best_x, best_y = x[1], y[1]
+    for _ in range(PEAK_STEPS):
+        x0, x1, x2 = x
+        y0, y1, y2 = y
+        num = (x1 - x0) ** 2 * (y1 - y2) - (x1 - x2) ** 2 * (y1 - y0)
+        den = (x1 - x0) * (y1 - y2) - (x1 - x2) * (y1 - y0)
+        xv = x1 - 0.5 * num / den if abs(den) > 1e-300 else x1
+        xv = min(max(xv, x0), x2)
+        yv = _log(magnitude_at(math.exp(xv)))
+        if yv > best_y:
+            best_x, best_y = xv, yv
+        if yv >= y1:  # a proper bracket: keep the three points around the new best
+            x, y = ([x0, xv, x1], [y0, yv, y1]) if xv < x1 else ([x1, xv, x2], [y1, yv, y2])
+    top = float(mag.max())
+    if math.exp(best_y) >= top:
+        return math.exp(best_x), math.exp(best_y)
+    return float(grid_hz[int(np.argmax(mag))]), top
+
+
+def _illinois_one(g, a: float, b: float, ga: float, gb: float) -> float:
+    """:func:`_illinois` for one bracket, on floats."""
+    side = 0
+    lo, hi = min(a, b), max(a, b)
+    for _ in range(REFINE_STEPS):
+        c = (a * gb - b * ga) / (gb - ga) if gb != ga else 0.5 * (a + b)
+        if not math.isfinite(c):
+            c = 0.5 * (a + b)
+        c = min(max(c, lo), hi)
+        gc = g(c)
+        if _sign(gc) == _sign(gb):  # replace b by c; halve the stale end value if it repeats
+            ga = ga * 0.5 if side == 1 else ga
+            side = 1
+        else:
+            a, ga = b, gb
+            side = -1
+        b, gb = c, gc
+    return b
+
+
+def _log(x) -> float:
+    """``ln x`` as numpy gives it: ``-inf`` at 0, nan for nan."""
+    x = float(x)
+    if x > 0.0:
+        return math.log(x)
+    return -math.inf if x == 0.0 else math.nan
+
+
+def _sign(x: float) -> float:
+    """``numpy.sign`` of one float (nan for nan, which equals nothing)."""
+    if x != x:
+        return math.nan
+    return float((x > 0.0) - (x < 0.0))

@@ -91,7 +91,7 @@ def settling_time_s(system: MnaSystem, v_pos: float, band_v: float) -> float:
         states = np.vstack([z1[None, :], _steps(rest, q, z1, STEPS_PER_BLOCK - 1)])
         z = states[-1]
         devs = np.max(np.abs(states[:, :n_nodes] - final), axis=1)
-        for i, dev in enumerate(devs.tolist()):
+        for dev in devs.tolist():
             t_now = t_prev + h
             if dev > band_v:
                 crossing = None

@@ -62,7 +62,7 @@ from service.engine.model.circuit import (
     Stage,
 )
 from service.engine.model.parts import tolerances_of
-from service.engine.solver import chain, corners
+from service.engine.solver import chain, corners, magnitude
 from service.engine.solver.mna import build as build_mna
 from service.engine.synthesis import band_limit, centring, gain_split, ideal, impedance
 
@@ -572,7 +572,17 @@ def _circuit(req: DesignRequest, stages, bias, c_out) -> Circuit:
 
 def _with_low_side(req: DesignRequest, pairs, bias, c_feedback=None) -> Circuit:
     """Size the coupling, ground-leg and output capacitors (module docstring, step 2), with
-    the band-limiting capacitors ``c_feedback`` (one per stage) in place when given."""
+    the band-limiting capacitors ``c_feedback`` (one per stage) in place when given.
+
+    Cached: the gain passes, the bias settling and the band limit ask for the same sizing
+    again (about half the calls of a design repeat one), and the result is a pure function
+    of its (frozen) arguments."""
+    return _low_side_cached(req, tuple(pairs), bias,
+                            None if c_feedback is None else tuple(c_feedback))
+
+
+@lru_cache(maxsize=256)
+def _low_side_cached(req: DesignRequest, pairs: tuple, bias, c_feedback) -> Circuit:
     comp = req.components
     cser, rser = comp.capacitor_pool, comp.resistor_pool
     n = len(pairs)
@@ -684,7 +694,7 @@ def _f_low_estimates(params: chain.ChainParams, req: DesignRequest) -> np.ndarra
     f_mid = math.sqrt(t.f_low_hz * t.f_high_hz)
     grid = np.geomspace(t.f_low_hz / 300.0, f_mid, 48)
     f = np.concatenate([grid, [f_mid]])[None, :]
-    mag = np.abs(chain.solve_params(params, f).vout)
+    mag = magnitude.evaluator(params, magnitude.model_of(params))(f)
     mag = np.broadcast_to(mag, (SIGMA_GRID.size, f.shape[1]))
     thr = mag[:, -1:] / math.sqrt(2.0)
     below = mag[:, :-1] < thr
