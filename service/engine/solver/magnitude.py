@@ -18,6 +18,8 @@ evaluate many candidate circuits through :func:`evaluator`.
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 
 from service.engine.solver.chain import TWO_PI, ChainParams, solve_params
@@ -232,21 +234,28 @@ def stage_product_mag(p: ChainParams, f_hz, factors: list | None = None) -> np.n
     return np.sqrt(mag2, out=mag2)
 
 
-def _poly_s(coeffs, s):
-    """``c0 + c1 s + c2 s^2`` at complex ``s`` (coefficients low first; floats or trials)."""
-    out = s * coeffs[-1]
-    for c in reversed(coeffs[1:-1]):
-        out += c
-        out *= s
-    out += coeffs[0]
-    return out
+class _JOmega:
+    """``s = j w`` on the (trials x frequencies) shape: polynomials with real coefficients
+    are evaluated as their even part (real) and odd part (imaginary) by real Horner steps
+    in ``x = -w^2``, about half the work of complex arithmetic."""
 
+    def __init__(self, w: np.ndarray, shape: tuple):
+        self.w = w
+        self.mx = -(w * w)
+        self.shape = shape
 
-def _poly_any(coeffs, s):
-    """``sum c_i s^i`` at complex ``s`` for any number of coefficients (low first)."""
-    if len(coeffs) == 1:
-        return coeffs[0] + 0.0 * s
-    return _poly_s(coeffs, s)
+    def poly(self, coeffs) -> np.ndarray:
+        """``sum c_i (j w)^i`` (real coefficients, floats or trial arrays, low first):
+        ``sum c_2k (-w^2)^k + j w sum c_(2k+1) (-w^2)^k``."""
+        out = np.empty(self.shape, dtype=complex)
+        _horner_into(coeffs[0::2], self.mx, out.real)
+        odd = coeffs[1::2]
+        if odd:
+            _horner_into(odd, self.mx, out.imag)
+            out.imag *= self.w
+        else:
+            out.imag[...] = 0.0
+        return out
 
 
 #: The fraction-free recursion rescales its numerators every this many stages, so their
@@ -280,8 +289,7 @@ def shared_ref_mag(p: ChainParams, f_hz) -> np.ndarray:
               *p.gbw_hz, *p.c_couple_f, *p.r_bias_ohm, *p.r_feedback_ohm, *p.r_gain_ohm,
               *p.c_gain_f, *p.r_in_ohm, *(p.c_feedback_f or [])]
     shape = np.broadcast_shapes(w.shape, *(np.shape(v) for v in values if v is not None))
-    s = np.zeros(shape, dtype=complex)
-    s.imag = w
+    jw = _JOmega(w, shape)
     a_n = np.ones(shape, dtype=complex)
     b_n = np.zeros(shape, dtype=complex)
     ia = np.zeros(shape, dtype=complex)
@@ -298,10 +306,10 @@ def shared_ref_mag(p: ChainParams, f_hz) -> np.ndarray:
         cf = None if p.c_feedback_f is None else p.c_feedback_f[k]
         if p.inverting and cf is not None:
             alpha_c, beta_c, den_c = feedback_stage_polys(p, k, cf)
-            den = _poly_any(den_c, s)
-            alpha_s = _poly_any(alpha_c, s)
+            den = jw.poly(den_c)
+            alpha_s = jw.poly(alpha_c)
             new_b = b_n * alpha_s
-            new_b += q * _poly_any(beta_c, s)
+            new_b += q * jw.poly(beta_c)
             a_n *= alpha_s
             b_n = new_b
             for arr in (q, ia, ib):
@@ -309,17 +317,17 @@ def shared_ref_mag(p: ChainParams, f_hz) -> np.ndarray:
         elif p.inverting:
             rin = p.r_in_ohm[k] + rs_k
             if cc is None:
-                den = _poly_s([rf + rin + a0 * rin, tau * (rf + rin)], s)
+                den = jw.poly([rf + rin + a0 * rin, tau * (rf + rin)])
                 alpha = -a0 * rf
                 beta = a0 * (rf + rin)
                 new_b = b_n * alpha
                 new_b += q * beta
                 a_n *= alpha
             else:
-                den = _poly_s([1.0 + a0, tau + cc * (rf + rin) + a0 * cc * rin,
-                               tau * cc * (rf + rin)], s)
-                alpha = s * (-a0 * rf * cc)
-                beta = _poly_s([a0, a0 * cc * (rf + rin)], s)
+                den = jw.poly([1.0 + a0, tau + cc * (rf + rin) + a0 * cc * rin,
+                               tau * cc * (rf + rin)])
+                alpha = jw.poly([0.0, -a0 * rf * cc])
+                beta = jw.poly([a0, a0 * cc * (rf + rin)])
                 new_b = b_n * alpha
                 new_b += q * beta
                 a_n *= alpha
@@ -332,9 +340,9 @@ def shared_ref_mag(p: ChainParams, f_hz) -> np.ndarray:
                 if cc is None:
                     n_y, d_y, m_y = 1.0, rb + rs_k, rs_k  # real: y = 1/(Rb + Rs_k)
                 else:
-                    n_y = s * cc
-                    d_y = _poly_s([1.0, cc * (rb + rs_k)], s)
-                    m_y = 1.0 if k > 0 else _poly_s([1.0, cc * rs_k], s)
+                    n_y = jw.poly([0.0, cc])
+                    d_y = jw.poly([1.0, cc * (rb + rs_k)])
+                    m_y = 1.0 if k > 0 else jw.poly([1.0, cc * rs_k])
                 # injection (X - v_ref) y, then P = X Rb y + v_ref m_y / d_y
                 ia *= d_y
                 ia += a_n * n_y
@@ -352,8 +360,8 @@ def shared_ref_mag(p: ChainParams, f_hz) -> np.ndarray:
             cg = p.c_gain_f[k]
             if cf is not None:
                 alpha_c, _, den_c = feedback_stage_polys(p, k, cf)
-                den = _poly_any(den_c, s)
-                num = _poly_any(alpha_c, s)
+                den = jw.poly(den_c)
+                num = jw.poly(alpha_c)
                 a_n *= num
                 b_n *= num
                 if cg is None:
@@ -363,8 +371,8 @@ def shared_ref_mag(p: ChainParams, f_hz) -> np.ndarray:
                 if cg is None:
                     # the leg O -> Zf -> Rg -> REF injects (O - v_ref) df / (Rf + Rg df):
                     # every quantity goes over the common denominator q (Rf + Rg df)
-                    d_f = _poly_any([1.0, rf * cf], s)
-                    d_l = _poly_any([rf + rg, rg * rf * cf], s)
+                    d_f = jw.poly([1.0, rf * cf])
+                    d_l = jw.poly([rf + rg, rg * rf * cf])
                     inj_a = a_n * d_f
                     inj_b = (b_n - q) * d_f
                     for arr in (a_n, b_n, q, ia, ib):
@@ -373,15 +381,15 @@ def shared_ref_mag(p: ChainParams, f_hz) -> np.ndarray:
                     ib += inj_b
             else:
                 if cg is None:
-                    den = _poly_s([rf + rg + a0 * rg, tau * (rf + rg)], s)
+                    den = jw.poly([rf + rg + a0 * rg, tau * (rf + rg)])
                     num = a0 * (rf + rg)
                     a_n *= num
                     b_n *= num
                     b_n -= q * (a0 * rf)
                 else:
                     t_fg = cg * (rf + rg)
-                    den = _poly_s([1.0 + a0, tau + t_fg + a0 * rg * cg, tau * t_fg], s)
-                    num = _poly_s([a0, a0 * t_fg], s)
+                    den = jw.poly([1.0 + a0, tau + t_fg + a0 * rg * cg, tau * t_fg])
+                    num = jw.poly([a0, a0 * t_fg])
                     a_n *= num
                     b_n *= num
                 for arr in (q, ia, ib):
@@ -403,7 +411,7 @@ def shared_ref_mag(p: ChainParams, f_hz) -> np.ndarray:
     else:
         t_o = p.c_out_f * p.load_ohm * w
         out_mag = t_o / np.sqrt(1.0 + t_o * t_o)
-    y_div = _poly_s([1.0 / p.r_top_ohm + 1.0 / p.r_bottom_ohm, p.c_bypass_f], s)
+    y_div = jw.poly([1.0 / p.r_top_ohm + 1.0 / p.r_bottom_ohm, p.c_bypass_f])
     e = q * y_div
     e -= ib
     num = a_n * e
@@ -415,10 +423,61 @@ def shared_ref_mag(p: ChainParams, f_hz) -> np.ndarray:
 
 
 def evaluator(params: ChainParams, model: str):
-    """``f -> |Vout/Vs|`` for the named model (``"stage-product"`` or ``"chain-nodal"``)."""
+    """``f -> |Vout/Vs|`` for the named model (``"stage-product"``,
+    ``"chain-fraction-free"`` or ``"chain-nodal"``).
+
+    The fraction-free recursion keeps about ten (trials x frequencies) complex arrays alive;
+    a large batch is therefore evaluated in blocks of trials of about ``BLOCK_POINTS``
+    points, whose arrays stay in the processor's cache (4 stages x 200 frequencies: 55 us
+    per trial against 100 us in one 2000-trial block, on the 2-core build machine; the
+    real-valued stage-product model gained nothing from blocks)."""
     if model == STAGE_PRODUCT:
         factors = stage_factors(params)
         return lambda f: stage_product_mag(params, f, factors)
     if model == SHARED_REF:
-        return lambda f: shared_ref_mag(params, f)
+        return lambda f: _in_blocks(shared_ref_mag, params, f)
     return lambda f: np.abs(solve_params(params, f).vout)
+
+
+#: Points (trials x frequencies) per block of :func:`evaluator`'s fraction-free model.
+BLOCK_POINTS = 25_000
+
+
+def _in_blocks(kernel, params: ChainParams, f_hz) -> np.ndarray:
+    """``kernel(params, f_hz)`` computed over blocks of trials (rows) and stacked."""
+    f = np.asarray(f_hz, dtype=float)
+    rows = _trial_rows(params)
+    if f.ndim != 2 or rows * f.shape[1] <= BLOCK_POINTS or f.shape[0] not in (1, rows):
+        return kernel(params, f)
+    step = max(1, BLOCK_POINTS // f.shape[1])
+    out = np.empty((rows, f.shape[1]))
+    for a in range(0, rows, step):
+        b = min(a + step, rows)
+        out[a:b] = kernel(_trial_slice(params, a, b), f if f.shape[0] == 1 else f[a:b])
+    return out
+
+
+def _trial_rows(params: ChainParams) -> int:
+    """Number of trials (rows) the parameters carry (1 when every value is a scalar)."""
+    rows = 1
+    for value in vars(params).values():
+        for v in (value if isinstance(value, list) else [value]):
+            if isinstance(v, np.ndarray) and v.ndim == 2:
+                rows = max(rows, v.shape[0])
+    return rows
+
+
+def _trial_slice(params: ChainParams, a: int, b: int) -> ChainParams:
+    """The parameters of trials ``a:b`` (per-trial columns sliced, scalars kept)."""
+    def cut(v):
+        if isinstance(v, np.ndarray) and v.ndim == 2 and v.shape[0] > 1:
+            return v[a:b]
+        return v
+
+    changes = {}
+    for name, value in vars(params).items():
+        if isinstance(value, list):
+            changes[name] = [cut(v) for v in value]
+        elif isinstance(value, np.ndarray):
+            changes[name] = cut(value)
+    return replace(params, **changes)
