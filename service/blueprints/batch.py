@@ -6,6 +6,8 @@ a bad item becomes a problem document in its slot and does not fail the others.
 
 from __future__ import annotations
 
+import json
+
 from flask import Blueprint
 from marshmallow import ValidationError
 
@@ -86,8 +88,13 @@ def create_designs():
     """
     items = _requests_of(get_json_body())
     _charge_batch(items)
-    results = []
+    # A design is a pure function of its request: an item repeated in the batch is designed
+    # once and its result repeated (every item is still charged above).
+    results, done = [], {}
     for i, item in enumerate(items):
-        budget.check(f"batch item {i}")
-        results.append(design_one(item))
+        key = json.dumps(item, sort_keys=True, separators=(",", ":"))
+        if key not in done:
+            budget.check(f"batch item {i}")
+            done[key] = design_one(item)
+        results.append(done[key])
     return json_response({"results": results}, field="requests")

@@ -6,8 +6,8 @@ Run: ``make bench`` or ``.venv/bin/python tests/benchmarks/bench_engine.py``.
 Every figure is measured on requests that differ from each other: the README example
 family (60 dB from 2 kHz to 200 kHz on 5 V, the 10 MHz CMOS archetype) with the target
 gain drawn afresh for every request from one seeded generator, and the per-circuit result
-cache (``analysis._as_built_cached``) emptied before each timed design, so no cache can
-answer a repeat. Monte Carlo repetitions use a fresh seed each. Sections:
+caches (``analysis._as_built_cached``, ``design._low_side_cached``) emptied before each
+timed design, so no cache can answer a repeat. Monte Carlo repetitions use a fresh seed each. Sections:
 
 1. engine median per design (``design.design``: synthesis, build checks and yield),
    goal <= 1 ms;
@@ -454,7 +454,7 @@ if __name__ == "__main__":
     started = time.perf_counter()
     print(f"gainchain bench: {os.cpu_count()} cpus, load average "
           f"{os.getloadavg()[0]:.2f} at start; requests differ (gain drawn per request, "
-          "per-circuit cache emptied before each design)")
+          "per-circuit caches emptied before each design)")
     bench_engine()
     bench_flask()
     bench_ngspice()

@@ -147,3 +147,19 @@ def test_budget_covers_exports(monkeypatch):
     client = make_app({"GAINCHAIN_COMPUTE_BUDGET_S": "0.3"}, test_routes=False).test_client()
     monkeypatch.setattr(exports, "export", _slow(0.5, exports.export))
     assert_problem(client.post("/v1/exports/bom.xlsx", json=README), 503)
+
+
+def test_repeated_batch_items_are_designed_once_and_answered_alike(client):
+    # A design is a pure function of its request (same request, same bytes out), so an item
+    # repeated in a batch is designed once; every slot still carries the full result.
+    other = dict(README, target=dict(README["target"], gain_db=54))
+    before = _design_count(client)
+    resp = client.post("/v1/designs/batch", json={"requests": [README, other, README] * 5})
+    assert resp.status_code == 200
+    results = resp.get_json()["results"]
+    assert len(results) == 15 and all(r["status"] == 200 for r in results)
+    assert _design_count(client) == before + 2
+    assert results[0] == results[2] == results[14]
+    assert results[1] != results[0]
+    single = client.post("/v1/designs", json=README).get_json()
+    assert results[0]["design"] == single

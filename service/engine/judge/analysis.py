@@ -129,13 +129,22 @@ def stage_band(circuit: Circuit, k: int, peak_hz: float) -> dict:
     ``peak_hz`` (None when it stays above within 1 mHz..10 GHz). The crossings are
     bracketed on the corner grid and refined by Brent's method on the log ratio.
     """
+    params = chain.params_from_circuit(circuit)
+
     def ratio(f):
-        sol = chain.solve(circuit, np.atleast_1d(f))
+        sol = chain.solve_params(params, np.atleast_1d(f))
         with np.errstate(divide="ignore", invalid="ignore"):  # an input that underflows
             r = np.abs(sol.stage_out_abs[k] / sol.stage_in[k])
         return np.where(np.isfinite(r), r, 0.0)
 
-    level = float(ratio(peak_hz)[0]) * corners.HALF_POWER
+    def ratio_at(f: float) -> float:
+        """``ratio`` at one frequency, solved on Python complex numbers."""
+        sol = chain.solve_params(params, float(f))
+        x = sol.stage_in[k]
+        r = abs(sol.stage_out_abs[k] / x) if x != 0 else 0.0
+        return r if math.isfinite(r) else 0.0
+
+    level = ratio_at(peak_hz) * corners.HALF_POWER
     grid = corners.GRID_HZ
     if not (math.isfinite(level) and level > 0.0):
         return {"gain": level / corners.HALF_POWER, "f_low_hz": None, "f_high_hz": None}
@@ -151,7 +160,7 @@ def stage_band(circuit: Circuit, k: int, peak_hz: float) -> dict:
         j = below[0]
         near = peak_hz if j == 0 else f[j - 1]
         def g(lf):
-            return float(np.log(max(float(ratio(np.exp(lf))[0]), TINY) / level))
+            return math.log(max(ratio_at(math.exp(lf)), TINY) / level)
 
         a, b = math.log(near), math.log(f[j])
         if g(a) * g(b) > 0.0:  # no sign change to refine (a degenerate response): the grid
