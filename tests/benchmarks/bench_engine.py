@@ -7,7 +7,8 @@ Every figure is measured on requests that differ from each other: the README exa
 family (60 dB from 2 kHz to 200 kHz on 5 V, the 10 MHz CMOS archetype) with the target
 gain drawn afresh for every request from one seeded generator, and the per-circuit result
 caches (``analysis._as_built_cached``, ``design._low_side_cached``) emptied before each
-timed design, so no cache can answer a repeat. Monte Carlo repetitions use a fresh seed each. Sections:
+timed design, so no cache can answer a repeat. Monte Carlo repetitions use a fresh seed
+each. Sections:
 
 1. engine median per design (``design.design``: synthesis, build checks and yield),
    goal <= 1 ms;

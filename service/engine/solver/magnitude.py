@@ -12,8 +12,9 @@ costs less:
   is done per frequency.
 
 Both are algebraically identical to the nodal solution (tests/analyses/test_montecarlo.py
-compares them with it trial by trial: 1e-9 relative up to four stages, 1e-5 at twelve). The Monte Carlo, the yield predictor and the synthesis's low-side search
-evaluate many candidate circuits through :func:`evaluator`.
+compares them with it trial by trial: 1e-9 relative up to four stages, 1e-5 at twelve).
+The Monte Carlo, the yield predictor and the synthesis's low-side search evaluate many
+candidate circuits through :func:`evaluator`.
 """
 
 from __future__ import annotations
