@@ -21,8 +21,8 @@ from dataclasses import replace
 
 import numpy as np
 import pytest
-
 from analyses.circuits import ALL
+
 from service.engine.judge import montecarlo as mc
 from service.engine.solver import chain, corners, magnitude, transient
 from service.engine.solver.dc import dc_rhs
