@@ -255,3 +255,22 @@ def test_no_stable_stage_count_still_designs_and_says_why():
     failed = [c for c in d.judgement.checks if c.check == "stability" and not c.passed]
     assert failed and failed[0].value == pytest.approx(1 + st.r_feedback_ohm / st.r_gain_ohm,
                                                        rel=1e-3)
+
+
+@pytest.mark.parametrize("name", sorted(TABLE) + ["readme_startup_limit"])
+def test_final_judgement_equals_a_fresh_full_judgement(name):
+    # The design completes its stage count's judgement (made without the start-up
+    # transient) instead of judging the circuit again: it must equal a fresh full judgement.
+    from dataclasses import replace
+
+    from service.engine.model.circuit import Limits
+
+    if name == "readme_startup_limit":
+        req = readme_request(limits=replace(Limits(), max_startup_s=0.05))
+        result = design.design(req)
+    else:
+        req, result = request(*TABLE[name]), designed(name)
+    fresh = design.judge_synthesis(req, result.synthesis)
+    assert result.judgement == fresh
+    startup = next(c for c in result.judgement.checks if c.check == "startup_time")
+    assert startup.detail != "Start-up time not computed for this candidate."

@@ -473,11 +473,14 @@ def run_checks(circuit: Circuit, ctx: CheckContext, *, startup: bool = True) -> 
     return checks
 
 
+#: Detail of the start-up entry of a candidate whose transient was not computed.
+STARTUP_SKIPPED = "Start-up time not computed for this candidate."
+
+
 def _startup_check(circuit: Circuit, system: MnaSystem, limits: Limits, run: bool) -> Check:
     limit = limits.max_startup_s
     if not run and limit is None:
-        return Check("startup_time", None, None, None, "s", None,
-                     "Start-up time not computed for this candidate.")
+        return Check("startup_time", None, None, None, "s", None, STARTUP_SKIPPED)
     band_v = STARTUP_BAND_FRACTION * circuit.supply.span_v
     t = settling_time_s(system, circuit.supply.v_pos if circuit.bias is not None else 0.0,
                         band_v)
@@ -489,6 +492,15 @@ def _startup_check(circuit: Circuit, system: MnaSystem, limits: Limits, run: boo
     return Check("startup_time", None, value, limit, "s", passed,
                  f"After the supply steps on, {what} at {when} (linear op-amps, capacitors "
                  "discharged)" + ("" if limit is None else f"; the limit is {limit:g} s") + ".")
+
+
+def with_startup(checks: tuple, circuit: Circuit, limits: Limits) -> tuple:
+    """``checks`` (from ``run_checks(..., startup=False)``) with the start-up transient
+    computed when it was skipped: the same list ``run_checks`` gives with ``startup=True``
+    (the skipped entry has no limit, so no verdict depends on it)."""
+    return tuple(_startup_check(circuit, build(circuit), limits, True)
+                 if c.check == "startup_time" and c.detail == STARTUP_SKIPPED else c
+                 for c in checks)
 
 
 def input_impedance_ohm(circuit: Circuit, system: MnaSystem, f_hz: float) -> float:

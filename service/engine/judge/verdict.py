@@ -9,10 +9,10 @@ report both judge through :func:`judge`, so a design and the analysis of its cir
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 from service.engine.judge import analysis, yield_estimate
-from service.engine.judge.checks import Check, CheckContext, run_checks
+from service.engine.judge.checks import Check, CheckContext, run_checks, with_startup
 from service.engine.judge.supply_rejection import ripple_frequencies
 from service.engine.model.circuit import Circuit, Limits, Target
 
@@ -45,3 +45,10 @@ def judge(circuit: Circuit, ab: analysis.AsBuilt, *, target: Target | None,
     status, shortfalls = analysis.verdict(ab, target, list(checks))
     status, shortfalls = yield_estimate.with_yield(status, shortfalls, yield_est)
     return Judgement(checks, status, tuple(shortfalls))
+
+
+def with_startup_time(judgement: Judgement, circuit: Circuit, limits: Limits) -> Judgement:
+    """A judgement made with ``startup=False`` completed with the start-up transient: equal
+    to judging again with ``startup=True`` (a skipped start-up entry has no limit, so the
+    status and shortfalls stand), at the cost of the transient alone."""
+    return replace(judgement, checks=with_startup(judgement.checks, circuit, limits))

@@ -32,7 +32,7 @@ and with an ngspice Monte Carlo.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from functools import lru_cache
 
 import numpy as np
@@ -81,6 +81,11 @@ class YieldEstimate:
     samples: np.ndarray = field(repr=False)
     passed: dict = field(repr=False)
     peaking: float = 0.0
+    #: ``(parts, half-widths, nominal, S, C)`` of :func:`sensitivities`, for
+    #: :func:`with_peaking` (not part of the figures).
+    basis: tuple = field(default=(), repr=False, compare=False)
+    #: Whether the exact peaking check has run (``peaking`` then holds its fraction).
+    peaking_checked: bool = False
 
     @property
     def meets(self) -> bool:
@@ -188,13 +193,25 @@ def predict(circuit: Circuit, target: Target, tolerances: parts_mod.Tolerances, 
             passed["low"] &= f_lo >= lo_min
         if hi_max is not None:
             passed["high"] &= np.isfinite(f_hi) & (f_hi <= hi_max)
-    peaking = peaking_fraction(circuit, tolerances, parts, half, y0, sens, curv) \
-        if peaking else 0.0
-    predicted = float(np.mean(passed["gain"] & passed["low"] & passed["high"])) * (1 - peaking)
+    predicted = float(np.mean(passed["gain"] & passed["low"] & passed["high"]))
     nominal = {"gain_db": float(y0[0]), "f_low_hz": float(np.exp(y0[1])),
                "f_high_hz": float(np.exp(y0[2]))}
-    return YieldEstimate(predicted=predicted, min_yield=target.min_yield, nominal=nominal,
-                         limits=limits, samples=samples, passed=passed, peaking=peaking)
+    est = YieldEstimate(predicted=predicted, min_yield=target.min_yield, nominal=nominal,
+                        limits=limits, samples=samples, passed=passed,
+                        basis=(parts, half, y0, sens, curv))
+    return with_peaking(est, circuit, tolerances) if peaking else est
+
+
+def with_peaking(est: YieldEstimate, circuit: Circuit,
+                 tolerances: parts_mod.Tolerances) -> YieldEstimate:
+    """``est`` (of ``circuit``, made with ``peaking=False``) with the exact peaking check
+    applied: the same estimate :func:`predict` gives with ``peaking=True``, without
+    computing the sensitivities again."""
+    if est.peaking_checked:
+        return est
+    peaking = peaking_fraction(circuit, tolerances, *est.basis)
+    return replace(est, predicted=est.predicted * (1 - peaking), peaking=peaking,
+                   peaking_checked=True)
 
 
 def peaking_fraction(circuit: Circuit, tolerances: parts_mod.Tolerances, parts, half, y0,

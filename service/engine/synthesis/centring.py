@@ -83,7 +83,7 @@ def centre(req: DesignRequest, build):
     misses = target_shortfalls(syn.as_built, target)
     if any(m["quantity"] not in CENTRABLE for m in misses):
         # e.g. the op-amp's bandwidth misses the target: no aim of the corners fixes that
-        return replace(syn, yield_estimate=yield_estimate.predict(syn.circuit, target, tol))
+        return replace(syn, yield_estimate=yield_estimate.with_peaking(est, syn.circuit, tol))
     for _ in range(PASSES):
         if est.meets:
             break
@@ -115,7 +115,7 @@ def centre(req: DesignRequest, build):
         aim, syn, est = max(passes, key=lambda p: p[2].predicted)
     # the passes are compared on the quick estimate; the one kept gets the full one (with
     # the exact check of bias-loop peaking, which only lowers it)
-    return replace(syn, yield_estimate=yield_estimate.predict(syn.circuit, target, tol))
+    return replace(syn, yield_estimate=yield_estimate.with_peaking(est, syn.circuit, tol))
 
 
 def capacitance_f(circuit) -> float:

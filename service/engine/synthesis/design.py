@@ -50,7 +50,7 @@ from service.engine.judge.analysis import (
     peak_deficit_db,
 )
 from service.engine.judge.supply_rejection import ripple_frequencies
-from service.engine.judge.verdict import Judgement, judge
+from service.engine.judge.verdict import Judgement, judge, with_startup_time
 from service.engine.model import eseries
 from service.engine.model.circuit import (
     DUAL,
@@ -807,10 +807,10 @@ def design(req: DesignRequest, *, check_deadline=None) -> Design:
     """
     check_deadline = check_deadline or _no_deadline
     check_request(req)
+    tried: dict[int, tuple[Synthesis, Judgement]] = {}
     if req.stages is not None:
         syn = synthesize(req, req.stages)
     else:
-        tried: dict[int, tuple[Synthesis, Judgement]] = {}
         syn = None
         first_met = None  # fewest stages meeting everything, before the band-limit rule
         for n in stage_counts_to_try(req):
@@ -841,11 +841,17 @@ def design(req: DesignRequest, *, check_deadline=None) -> Design:
                 cand = synthesize(req, reach)
                 tried[reach] = (cand, judge_synthesis(req, cand, startup=False))
             syn = best_of(tried)
-    syn = replace(syn, as_built=as_built(syn.circuit))  # with the per-stage figures
     n = syn.circuit.n_stages
+    judged = tried.get(n)
+    syn = replace(syn, as_built=as_built(syn.circuit))  # with the per-stage figures
+    if judged is not None and judged[0].circuit == syn.circuit:
+        # the loop judged this circuit without its start-up transient: complete that one
+        judgement = with_startup_time(judged[1], syn.circuit, req.limits)
+    else:
+        judgement = judge_synthesis(req, syn)
     ic = ideal.ideal_cascade(req.target.gain, req.target.f_low_hz, req.opamp.gbw_hz, n,
                              req.topology)
-    return Design(request=req, synthesis=syn, ideal=ic, judgement=judge_synthesis(req, syn))
+    return Design(request=req, synthesis=syn, ideal=ic, judgement=judgement)
 
 
 def fallback_counts(req: DesignRequest) -> list[int]:
