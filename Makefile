@@ -27,8 +27,12 @@ serve-prod: $(VENV)/.installed
 	@echo "serve-prod: nginx front on $(HOST):$(PORT) before gunicorn (as in the container); needs nginx (apt-get install nginx)"
 	HOST=$(HOST) PORT=$(PORT) $(BIN)/python docker/front.py
 
+# test: the suite on JOBS processes (pytest-xdist), then the tests marked `serial` (a live
+# server's latency under load) alone, so no other test competes with them for the cores.
+JOBS ?= 2
 test: $(VENV)/.installed-test
-	$(BIN)/python -m pytest -q
+	$(BIN)/python -m pytest -q -n $(JOBS) -m "not serial"
+	$(BIN)/python -m pytest -q -m serial
 
 bench: $(VENV)/.installed-test
 	$(BIN)/python tests/benchmarks/bench_engine.py

@@ -6,9 +6,9 @@ Run: ``make bench`` or ``.venv/bin/python tests/benchmarks/bench_engine.py``.
 Every figure is measured on requests that differ from each other: the README example
 family (60 dB from 2 kHz to 200 kHz on 5 V, the 10 MHz CMOS archetype) with the target
 gain drawn afresh for every request from one seeded generator, and the per-circuit result
-caches (``analysis._as_built_cached``, ``design._low_side_cached``) emptied before each
-timed design, so no cache can answer a repeat. Monte Carlo repetitions use a fresh seed
-each. Sections:
+caches (``analysis._as_built_cached``, ``design._low_side_cached``,
+``design._synthesis_cached``) emptied before each timed design, so no cache can answer a
+repeat. Monte Carlo repetitions use a fresh seed each. Sections:
 
 1. engine median per design (``design.design``: synthesis, build checks and yield),
    goal <= 1 ms;
@@ -87,6 +87,7 @@ def clear_result_caches() -> None:
 
     analysis._as_built_cached.cache_clear()
     design._low_side_cached.cache_clear()
+    design._synthesis_cached.cache_clear()
 
 
 def timed(fn) -> tuple[float, float, object]:

@@ -274,3 +274,23 @@ def test_final_judgement_equals_a_fresh_full_judgement(name):
     assert result.judgement == fresh
     startup = next(c for c in result.judgement.checks if c.check == "startup_time")
     assert startup.detail != "Start-up time not computed for this candidate."
+
+
+def test_auto_design_and_its_stage_count_share_one_synthesis():
+    # An exploration designs a request in "auto" mode, then again with the count it picked:
+    # the second design reuses the synthesis (a pure function of the request without its
+    # stage count) and equals a design made from scratch.
+    from dataclasses import replace
+
+    req = readme_request(target=Target.from_gain(gain_db=57.3, f_low_hz=2000,
+                                                 f_high_hz=200e3))
+    auto = design.design(req)
+    n = auto.synthesis.circuit.n_stages
+    hits = design._synthesis_cached.cache_info().hits
+    explicit = design.design(replace(req, stages=n))
+    assert design._synthesis_cached.cache_info().hits == hits + 1
+    design._synthesis_cached.cache_clear()
+    fresh = design.design(replace(req, stages=n))
+    assert explicit.synthesis.circuit == fresh.synthesis.circuit == auto.synthesis.circuit
+    assert explicit.judgement == fresh.judgement
+    assert explicit.synthesis.yield_estimate.predicted == fresh.synthesis.yield_estimate.predicted

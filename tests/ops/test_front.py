@@ -254,6 +254,7 @@ def _slow_body_client(port: int, seconds_: int, errors: list) -> None:
         errors.append(exc)
 
 
+@pytest.mark.serial
 @pytest.mark.slow
 def test_slow_header_clients_do_not_hold_workers(front):
     # Two connections sending one header line a second kept /healthz unanswered before.
@@ -267,6 +268,7 @@ def test_slow_header_clients_do_not_hold_workers(front):
     assert max(times) < PROBE_TIMEOUT_S and len(times) >= 5
 
 
+@pytest.mark.serial
 @pytest.mark.slow
 def test_slow_body_clients_do_not_hold_workers(front):
     errors: list = []
@@ -279,6 +281,7 @@ def test_slow_body_clients_do_not_hold_workers(front):
     assert max(times) < PROBE_TIMEOUT_S and len(times) >= 5
 
 
+@pytest.mark.serial
 @pytest.mark.slow
 def test_slow_readers_get_whole_replies_and_hold_no_worker(front):
     # A ~1 MB reply (12 stages x 2000 response points) to clients that do not read: the
@@ -318,6 +321,7 @@ def test_slow_readers_get_whole_replies_and_hold_no_worker(front):
         assert len(doc["response"]["frequency_hz"]) == 2000
 
 
+@pytest.mark.serial
 @pytest.mark.slow
 def test_two_maximal_requests_leave_healthz_answering(front):
     # Issue 10's availability goal: two maximal valid requests in flight, /healthz within
@@ -340,6 +344,7 @@ def test_two_maximal_requests_leave_healthz_answering(front):
     assert max(times) < PROBE_TIMEOUT_S and len(times) >= 2
 
 
+@pytest.mark.serial
 @pytest.mark.slow
 def test_per_client_rate_limit_is_429_problem_json(front):
     statuses, last = [], None
@@ -356,6 +361,7 @@ def test_per_client_rate_limit_is_429_problem_json(front):
     time.sleep(2.5)  # let the bucket refill for the other tests
 
 
+@pytest.mark.serial
 @pytest.mark.slow
 def test_front_refusals_are_problem_json(front):
     long_line = "/v1/opamps?" + "a" * 5000
@@ -372,6 +378,7 @@ def test_front_refusals_are_problem_json(front):
     time.sleep(1.0)
 
 
+@pytest.mark.serial
 @pytest.mark.slow
 def test_gunicorn_reached_directly_refuses_with_problem_json(tmp_path):
     # The review's finding: gunicorn's own 414/431 were HTML without the security headers.

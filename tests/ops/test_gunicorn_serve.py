@@ -21,7 +21,9 @@ from .front_support import Front, get
 from .test_docker import DOCKERFILE, dockerfile_instructions, stages
 
 ROOT = Path(__file__).resolve().parents[2]
-pytestmark = pytest.mark.slow
+#: serial: a live server's latency and worker counts, run alone after the parallel part
+#: (Makefile).
+pytestmark = [pytest.mark.slow, pytest.mark.serial]
 
 
 def _container_argv() -> list[str]:

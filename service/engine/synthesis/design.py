@@ -257,17 +257,35 @@ def synthesize(req: DesignRequest, n: int, *, aim: centring.Aim | None = None) -
     centred for the target's ``min_yield`` (:mod:`service.engine.synthesis.centring`: the
     passes below size for ``aim``'s corners)."""
     if aim is None:
-        passes: dict = {}  # (request, aim) -> Synthesis: the level search and the centring
-                           # share their first passes
+        # the request's own stage count plays no part here: one cache entry serves an
+        # "auto" design and the same request asked for with that count (an exploration
+        # designs both)
+        return _synthesis_cached(replace(req, stages=None), n)
+    return _synthesize_aimed(req, n, aim)
 
-        def at(r: DesignRequest, a: centring.Aim) -> Synthesis:
-            if (r, a) not in passes:
-                passes[(r, a)] = synthesize(r, n, aim=a)
-            return passes[(r, a)]
 
-        req, why = impedance.resolve(req, lambda r: at(r, centring.first_aim(r)))
-        syn = centring.centre(req, lambda a: at(req, a))
-        return replace(syn, components=req.components, impedance_reason=why)
+@lru_cache(maxsize=32)
+def _synthesis_cached(req: DesignRequest, n: int) -> Synthesis:
+    return _synthesize_centred(req, n)
+
+
+def _synthesize_centred(req: DesignRequest, n: int) -> Synthesis:
+    """The impedance level (when "auto") and the yield centring around the aimed passes."""
+    passes: dict = {}  # (request, aim) -> Synthesis: the level search and the centring
+                       # share their first passes
+
+    def at(r: DesignRequest, a: centring.Aim) -> Synthesis:
+        if (r, a) not in passes:
+            passes[(r, a)] = _synthesize_aimed(r, n, a)
+        return passes[(r, a)]
+
+    req, why = impedance.resolve(req, lambda r: at(r, centring.first_aim(r)))
+    syn = centring.centre(req, lambda a: at(req, a))
+    return replace(syn, components=req.components, impedance_reason=why)
+
+
+def _synthesize_aimed(req: DesignRequest, n: int, aim: centring.Aim) -> Synthesis:
+    """One pass: the circuit sized for ``aim``'s corners (module docstring, steps 1-4)."""
     req = centring.aimed_request(req, aim)
     comp = req.components
     topo = req.topology
