@@ -96,10 +96,16 @@ class MnaSystem:
     def size(self) -> int:
         return self.g.shape[0]
 
-    def matrix(self, f_hz) -> np.ndarray:
-        """``M(s) = G + s C`` for each frequency: shape ``(F, N, N)``."""
-        s = 1j * TWO_PI * np.atleast_1d(np.asarray(f_hz, dtype=float))
-        return self.g[None, :, :] + s[:, None, None] * self.c[None, :, :]
+    def matrix(self, f_hz, *, transposed: bool = False) -> np.ndarray:
+        """``M(s) = G + s C`` (``M^T`` when ``transposed``) for each frequency: shape
+        ``(F, N, N)``. With ``s = j w`` and G, C real, the real part is G and the imaginary
+        part ``w C``, filled in place."""
+        w = TWO_PI * np.atleast_1d(np.asarray(f_hz, dtype=float))
+        g, c = (self.g.T, self.c.T) if transposed else (self.g, self.c)
+        m = np.empty((w.size,) + g.shape, dtype=complex)
+        m.real[...] = g
+        np.multiply(w[:, None, None], c[None, :, :], out=m.imag)
+        return m
 
     def output_selector(self) -> np.ndarray:
         """``c`` with ``Vout = c^T x``: +1 at the output node, -1 at its reference."""
@@ -148,9 +154,9 @@ class MnaSystem:
         Shape ``(F, N)``. For a current ``J`` injected into node n, Vout gains
         ``y[:, n] * J``; for a voltage ``e`` in series with a unit's + input, ``y[:, row] * e``.
         """
-        m = self.matrix(f_hz)
+        m = self.matrix(f_hz, transposed=True)
         sel = np.broadcast_to(self.output_selector().astype(complex), (m.shape[0], self.size))
-        return np.linalg.solve(np.swapaxes(m, 1, 2), sel[:, :, None])[:, :, 0]
+        return np.linalg.solve(m, sel[:, :, None])[:, :, 0]
 
     def voltage(self, x: np.ndarray, node: str) -> np.ndarray:
         """Node voltage from a forward solution (GND is 0)."""
