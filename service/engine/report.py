@@ -229,7 +229,7 @@ def design_block(design: Design) -> dict:
                                        syn.impedance_reason),
         "tolerances": tolerances_of(req.components).to_dict(),
         "yield": body["yield"],
-        "warnings": body["warnings"],
+        "warnings": body["warnings"] + [_warn(code, text) for code, text in design.notes],
         "cautions": body["cautions"],
     }
 

@@ -51,6 +51,14 @@ TABLE = [
         "supply": {"kind": "single", "v_pos": 3.3},
         "signal": {"input_peak_v": 0.002, "source_impedance_ohm": 100},
         "opamp": RR_CMOS}, "target_not_met", "output_swing"),
+    # 100 dB (x 9.4e4 at its lower tolerance) at 1 mV is 94 V peak against the 4.96 V of
+    # a 5 V rail-to-rail part's whole output window: clips at any stage count (auto mode
+    # designs one count and says so: test_output_beyond_the_window_is_answered_with_a_note).
+    ("clip-beyond-window-100db-5v", {
+        "target": {"gain_db": 100, "f_low_hz": 2000, "f_high_hz": 200000},
+        "supply": {"kind": "single", "v_pos": 5},
+        "signal": {"input_peak_v": 0.001, "source_impedance_ohm": 200},
+        "opamp": "gc-cmos-rr-10m"}, "target_not_met", "output_swing"),
     # DC-coupled 80 dB: the first stage's 5 mV offset reaches the output multiplied by the
     # whole DC gain (>= 9.4e3 within tolerance): >= 47 V against 13.5 V of room.
     ("dc-80db-offset-15v", {
@@ -177,6 +185,17 @@ def test_verdict_table(client, case_id, body, status, failing):
         for e in bad:
             assert {"quantity": failing, "stage": e["stage"], "target": e["limit"],
                     "achieved": e["value"]} in d["shortfalls"]
+
+
+def test_output_beyond_the_window_is_answered_with_a_note(client):
+    body = next(t[1] for t in TABLE if t[0] == "clip-beyond-window-100db-5v")
+    d = _design(client, body)
+    notes = [w for w in d["warnings"] if w["code"] == "output_beyond_window"]
+    assert len(notes) == 1 and "94" in notes[0]["message"]
+    # a fixed stage count is designed as asked, without the note
+    d3 = _design(client, dict(body, stages=3))
+    assert d3["stage_count"] == 3
+    assert not [w for w in d3["warnings"] if w["code"] == "output_beyond_window"]
 
 
 def test_table_is_large_enough_and_mixed():

@@ -399,7 +399,8 @@ def bench_slopes():
     points = [50, 100, 200, 400]
     ys = [mc_time(mc, c4, mc_grid(mc, as_built, p), 1000, repeat=3)[1] for p in points]
     r2s.append(fit(points, ys, "frequency", "MC vs frequencies (4 st, 1000 tr)", scale=1e3)[1])
-    # versus stages: Monte Carlo (1000 trials x 200 f) and the engine's design()
+    # versus stages: Monte Carlo (4000 trials x 200 f: enough work per call for the
+    # per-stage cost to stand out of the fixed cost of the corner search) and design()
     counts = [2, 3, 4, 6, 8]
     mc_ys, design_ys = [], []
     for n in counts:
@@ -413,8 +414,8 @@ def bench_slopes():
         c = result.synthesis.circuit
         ab = as_built_of(result)
         c = bias_variants(c)["stiff VMID (buffered)"]
-        mc_ys.append(mc_time(mc, c, mc_grid(mc, ab, 200), 1000, repeat=3)[1])
-    r2s.append(fit(counts, mc_ys, "stage", "MC vs stages (1000 tr, 200 f)")[1])
+        mc_ys.append(mc_time(mc, c, mc_grid(mc, ab, 200), 4000, repeat=3)[1])
+    r2s.append(fit(counts, mc_ys, "stage", "MC vs stages (4000 tr, 200 f)")[1])
     r2s.append(fit(counts, design_ys, "stage", "design() vs stages (median of 3)")[1])
     # versus batch items (POST /v1/designs/batch, varied items)
     client = app().test_client()

@@ -211,6 +211,12 @@ def test_decompensated_part_never_below_min_stable_gain(gain_db, f_high, topolog
     assert all(c.passed for c in d.judgement.checks if c.check == "stability")
 
 
+#: 100 uV in: the 80 and 100 dB rows' outputs (1 V, 10 V) fit their op-amps' output windows
+#: (1 mV would not, and auto mode would then weigh one stage count only:
+#: test_output_beyond_the_window_designs_one_stage_count).
+SMALL_SIGNAL = Signal(input_peak_v=1e-4, source_impedance_ohm=200.0, load_ohm=10e3)
+
+
 @pytest.mark.parametrize("args", [
     (54, 300, 1e6, single(5), "gc-cmos-rr-10m", INVERTING),
     (100, 20, 2e6, dual(15), "gc-jfet-4m", NON_INVERTING),
@@ -218,7 +224,8 @@ def test_decompensated_part_never_below_min_stable_gain(gain_db, f_high, topolog
     (80, 100, 1e6, single(5), "gc-micro-1m", NON_INVERTING),
 ])
 def test_unreachable_target_gives_the_best_candidate(args):
-    req = request(*args)
+    req = request(*args, signal=SMALL_SIGNAL if args[0] >= 80 else None)
+    assert design.output_beyond_window(req) is None
     d = design.design(req)
     assert d.status == "target_not_met"
     assert any(s["quantity"] == "f_high_hz" for s in d.shortfalls)
@@ -294,3 +301,27 @@ def test_auto_design_and_its_stage_count_share_one_synthesis():
     assert explicit.synthesis.circuit == fresh.synthesis.circuit == auto.synthesis.circuit
     assert explicit.judgement == fresh.judgement
     assert explicit.synthesis.yield_estimate.predicted == fresh.synthesis.yield_estimate.predicted
+
+
+@pytest.mark.parametrize("args", [
+    (100, 20, 2e6, dual(15), "gc-jfet-4m", NON_INVERTING),   # 1 mV x 1e5: 100 V vs ~28 V
+    (140, 2000, 200e3, single(5), "gc-fast-50m-g5", NON_INVERTING),
+])
+def test_output_beyond_the_window_designs_one_stage_count(args):
+    # input_peak_v x gain above the op-amp's whole output window: the last stage clips at
+    # any stage count, so auto mode designs only the first count it would try and says why.
+    req = request(*args)
+    need, window = design.output_beyond_window(req)
+    assert need > window
+    d = design.design(req)
+    counts = design.stage_counts_to_try(req)
+    assert d.synthesis.circuit.n_stages == (counts[0] if counts else design.best_reach(req))
+    assert d.status == "target_not_met"
+    assert [code for code, _ in d.notes] == ["output_beyond_window"]
+    # The premise, against the checks themselves: every count auto mode would weigh either
+    # misses the gain or fails output_swing.
+    for n in design.fallback_counts(req):
+        syn = design.synthesize(req, n)
+        jd = design.judge_synthesis(req, syn, startup=False)
+        missed = {s["quantity"] for s in jd.shortfalls}
+        assert "output_swing" in missed or "gain_db" in missed, n

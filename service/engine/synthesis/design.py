@@ -738,6 +738,8 @@ class Design:
     synthesis: Synthesis
     ideal: ideal.IdealCascade
     judgement: Judgement
+    #: ``(code, message)`` remarks of the stage-count search for the report's warnings.
+    notes: tuple = ()
 
     @property
     def status(self) -> str:
@@ -801,6 +803,20 @@ def _no_deadline(where: str | None = None) -> None:
     return None
 
 
+def output_beyond_window(req: DesignRequest) -> tuple[float, float] | None:
+    """``(needed peak V, window V)`` when the output signal alone, ``input_peak_v`` times
+    the target gain at its lower tolerance, exceeds the op-amp's whole output window
+    ``(v_pos - swing_to_pos_v) - (v_neg + swing_to_neg_v)``; else None.
+
+    The last stage's output carries that signal around its DC level, which leaves at most
+    half the window on either side, so no circuit meeting the gain passes ``output_swing``
+    (by a factor of two at least, whatever the stage count, bias or offsets)."""
+    op, sup, t = req.opamp, req.supply, req.target
+    window = (sup.v_pos - op.swing_to_pos_v) - (sup.v_neg + op.swing_to_neg_v)
+    need = req.signal.input_peak_v * t.gain * 10.0 ** (-t.gain_tolerance_db / 20.0)
+    return (need, window) if need > window else None
+
+
 def judge_synthesis(req: DesignRequest, syn: Synthesis, *, startup: bool = True) -> Judgement:
     """The verdict on a synthesised circuit at the request's conditions, limits and
     tolerances (its predicted yield included)."""
@@ -815,7 +831,9 @@ def judge_synthesis(req: DesignRequest, syn: Synthesis, *, startup: bool = True)
 def design(req: DesignRequest, *, check_deadline=None) -> Design:
     """Design the cascade: the requested stage count, or the fewest stages whose as-built
     design meets the target and passes every check (auto); when none does, the best of
-    those tried (:func:`best_of`).
+    those tried (:func:`best_of`). When the output signal alone exceeds the op-amp's whole
+    output window (:func:`output_beyond_window`), no count can meet the target and auto mode
+    designs only the first count it would try (a note says so in the warnings).
 
     :param check_deadline: optional callable, called before each candidate stage count is
         synthesised; the web layer passes its compute-budget checker, which raises once the
@@ -826,8 +844,24 @@ def design(req: DesignRequest, *, check_deadline=None) -> Design:
     check_deadline = check_deadline or _no_deadline
     check_request(req)
     tried: dict[int, tuple[Synthesis, Judgement]] = {}
+    notes: tuple = ()
+    beyond = output_beyond_window(req) if req.stages is None else None
     if req.stages is not None:
         syn = synthesize(req, req.stages)
+    elif beyond is not None:
+        # no stage count can meet the target: design the one auto mode would try first
+        counts = stage_counts_to_try(req)
+        n = counts[0] if counts else best_reach(req)
+        check_deadline("design")
+        syn = synthesize(req, n)
+        tried[n] = (syn, judge_synthesis(req, syn, startup=False))
+        notes = (("output_beyond_window",
+                  f"The output signal alone, input_peak_v x the target gain (at its lower "
+                  f"tolerance), is {beyond[0]:.4g} V peak, more than the op-amp's whole "
+                  f"output window of {beyond[1]:.4g} V: no stage count can pass "
+                  f"output_swing, so only {n} stage{'s' if n > 1 else ''} (the first count "
+                  "auto mode tries) were designed. Lower the gain or the input, or raise "
+                  "the supply."),)
     else:
         syn = None
         first_met = None  # fewest stages meeting everything, before the band-limit rule
@@ -869,7 +903,7 @@ def design(req: DesignRequest, *, check_deadline=None) -> Design:
         judgement = judge_synthesis(req, syn)
     ic = ideal.ideal_cascade(req.target.gain, req.target.f_low_hz, req.opamp.gbw_hz, n,
                              req.topology)
-    return Design(request=req, synthesis=syn, ideal=ic, judgement=judgement)
+    return Design(request=req, synthesis=syn, ideal=ic, judgement=judgement, notes=notes)
 
 
 def fallback_counts(req: DesignRequest) -> list[int]:
