@@ -30,7 +30,11 @@ pytestmark = pytest.mark.slow
 
 # Loaded at import: schemathesis.pytest.from_fixture() fails under pytest 9.2
 # ("'Function' object has no attribute '_nodeid'"), the eager loader works.
-schema = schemathesis.openapi.from_wsgi("/openapi.json", make_app(test_routes=False))
+# A 30 s compute budget instead of 10 s: the fuzzing is about statuses and schemas, and a
+# slow corner of the request space must not turn into a 503 because the suite shares the
+# machine's cores (the budget's own 503 is tested in tests/ops/test_errors_limits_budget.py).
+schema = schemathesis.openapi.from_wsgi(
+    "/openapi.json", make_app({"GAINCHAIN_COMPUTE_BUDGET_S": "30"}, test_routes=False))
 
 
 @schema.parametrize()
