@@ -19,10 +19,7 @@ from service.engine.model.catalog import BUILTIN_OPAMPS
 def module_client():
     from service import create_app
 
-    # The properties are about the answers, not the compute budget (tests/ops has its own
-    # budget tests): a generous budget keeps a slow corner of the request space from
-    # turning into a 503 when the suite shares the machine's cores.
-    return create_app({"TESTING": True, "GAINCHAIN_COMPUTE_BUDGET_S": 120.0}).test_client()
+    return create_app({"TESTING": True}).test_client()
 
 
 @st.composite

@@ -831,8 +831,7 @@ def judge_synthesis(req: DesignRequest, syn: Synthesis, *, startup: bool = True)
 def design(req: DesignRequest, *, check_deadline=None) -> Design:
     """Design the cascade: the requested stage count, or the fewest stages whose as-built
     design meets the target and passes every check (auto); when none does, the best of
-    those tried, widened to :func:`fallback_counts` when none of them meets the gain and
-    band target (:func:`best_of`). When the output signal alone exceeds the op-amp's whole
+    those tried (:func:`best_of`). When the output signal alone exceeds the op-amp's whole
     output window (:func:`output_beyond_window`), no count can meet the target and auto mode
     designs only the first count it would try (a note says so in the warnings).
 
@@ -882,13 +881,10 @@ def design(req: DesignRequest, *, check_deadline=None) -> Design:
                 break
         syn = syn or first_met
         if syn is None:
-            # none meets everything: the best of those tried and, when none of them meets
-            # the gain and band target, of the best reach's neighbourhood (the stage counts
-            # a practising engineer would weigh for more bandwidth; a failed check that is
-            # not about bandwidth is no reason to look there)
+            # none meets everything: the best of those tried and of the best reach's
+            # neighbourhood (the stage counts a practising engineer would weigh)
             reach = best_reach(req)
-            band_met = any(not _target_misses(jd) for _, jd in tried.values())
-            for n in ([] if band_met else fallback_counts(req)):
+            for n in fallback_counts(req):
                 if n not in tried:
                     check_deadline("design")
                     cand = synthesize(req, n)
@@ -911,9 +907,8 @@ def design(req: DesignRequest, *, check_deadline=None) -> Design:
 
 
 def fallback_counts(req: DesignRequest) -> list[int]:
-    """Stage counts weighed when none meets everything and none of those auto mode tries
-    meets the gain and band target: those, and the stable ones around the count with the
-    best ideal reach."""
+    """Stage counts weighed when none meets everything: those auto mode tries, and the
+    stable ones around the count with the best ideal reach."""
     reach = best_reach(req)
     near = [n for n in (reach - 1, reach, reach + 1)
             if 1 <= n <= ideal.MAX_STAGES and _stable(req, n)]
@@ -926,14 +921,9 @@ def best_of(tried: dict) -> Synthesis:
     met) the fewest stages or (target missed) the highest as-built f_high."""
     def rank(n):
         syn, jd = tried[n]
-        target_misses = _target_misses(jd)
+        target_misses = sum(1 for s in jd.shortfalls
+                            if s["quantity"] in ("gain_db", "f_low_hz", "f_high_hz"))
         # a met target: the fewest stages; a missed one: the widest band
         reach = -syn.as_built.f_high_hz if target_misses else n
         return (target_misses > 0, len(jd.shortfalls), reach, n)
     return tried[min(sorted(tried), key=rank)][0]
-
-
-def _target_misses(jd: Judgement) -> int:
-    """How many of the gain and band figures (gain_db, f_low_hz, f_high_hz) a judgement
-    finds missed."""
-    return sum(1 for s in jd.shortfalls if s["quantity"] in ("gain_db", "f_low_hz", "f_high_hz"))
