@@ -9,7 +9,7 @@ from __future__ import annotations
 import math
 
 import pytest
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
 from service.engine.model.catalog import BUILTIN_OPAMPS
@@ -19,7 +19,10 @@ from service.engine.model.catalog import BUILTIN_OPAMPS
 def module_client():
     from service import create_app
 
-    return create_app({"TESTING": True}).test_client()
+    # The properties are about the answers, not the compute budget (tests/ops has its own
+    # budget tests): a generous budget keeps a slow corner of the request space from
+    # turning into a 503 when the suite shares the machine's cores.
+    return create_app({"TESTING": True, "GAINCHAIN_COMPUTE_BUDGET_S": 120.0}).test_client()
 
 
 @st.composite
@@ -51,9 +54,18 @@ def _finite(x):
     return isinstance(x, int | float) and not isinstance(x, bool) and math.isfinite(x)
 
 
+#: Found by the fuzzing: one stage of 1 + Rf/Rg = 70001 on a part whose A0 is 56234 (95 dB),
+#: whose loop crosses unity where 1/beta = A0.
+A0_LIMITED = {"target": {"gain_db": 90.0, "f_low_hz": 1.0, "f_high_hz": 10.0},
+              "supply": {"kind": "single", "v_pos": 5.0}, "opamp": "gc-fast-50m-g5",
+              "topology": "non_inverting",
+              "signal": {"input_peak_v": 0.001, "source_impedance_ohm": 10, "load_ohm": 2000.0}}
+
+
 @settings(max_examples=40, deadline=None, derandomize=True,
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
 @given(req=design_requests())
+@example(req=A0_LIMITED)
 def test_random_valid_targets(module_client, strict_json, req):
     resp = module_client.post("/v1/designs", json=req)
     assert resp.status_code < 500, (req, resp.data[:600])
@@ -91,7 +103,15 @@ def test_random_valid_targets(module_client, strict_json, req):
         else:
             ng = 1.0 + stage["r_feedback_ohm"] / stage["r_gain_ohm"]
         entry = [c for c in body["checks"] if c["check"] == "stability" and c["stage"] == k + 1]
-        assert entry[0]["value"] == pytest.approx(ng, rel=0.02)
+        # A flat-band noise gain above the op-amp's A0 leaves the loop gain under 1 there:
+        # it crosses unity below the ground-leg corner, where |A| = A0 and 1/beta has risen
+        # to A0 (loop gain A0 beta; common practice). Within 10 % of A0 the crossing sits
+        # low enough for the capacitors to matter, and neither figure is exact.
+        a0 = 10.0 ** (circuit["opamp"]["a0_db"] / 20.0)
+        if ng < 0.9 * a0:
+            assert entry[0]["value"] == pytest.approx(ng, rel=0.02)
+        elif ng > 1.1 * a0:
+            assert entry[0]["value"] == pytest.approx(a0, rel=0.02)
     # Issue 9: the predicted yield under the echoed tolerances counts last.
     has_yield = body["yield"]["predicted"] < t["min_yield"]
     if has_yield:
