@@ -306,6 +306,7 @@ def test_auto_design_and_its_stage_count_share_one_synthesis():
 @pytest.mark.parametrize("args", [
     (100, 20, 2e6, dual(15), "gc-jfet-4m", NON_INVERTING),   # 1 mV x 1e5: 100 V vs ~28 V
     (140, 2000, 200e3, single(5), "gc-fast-50m-g5", NON_INVERTING),
+    (97, 1.0, 10.0, single(5), "gc-fast-50m-g5", NON_INVERTING),  # 1 stage would be A0-bound
 ])
 def test_output_beyond_the_window_designs_one_stage_count(args):
     # input_peak_v x gain above the op-amp's whole output window: the last stage clips at
@@ -314,8 +315,19 @@ def test_output_beyond_the_window_designs_one_stage_count(args):
     need, window = design.output_beyond_window(req)
     assert need > window
     d = design.design(req)
+    n = d.synthesis.circuit.n_stages
     counts = design.stage_counts_to_try(req)
-    assert d.synthesis.circuit.n_stages == (counts[0] if counts else design.best_reach(req))
+    if not counts:  # no count reaches the band ideally: the best reach
+        assert n == design.best_reach(req)
+    else:
+        # the fewest counts auto mode tries whose stages keep a DC loop gain A0 / (1 + Rf/Rg)
+        # of at least 10 (the stage gain set by its feedback network)
+        assert n in counts and all(
+            design.ideal.noise_gain(req.target.gain ** (1 / m), req.topology)
+            > req.opamp.a0 / design.LOOP_GAIN_MIN for m in counts if m < n)
+        for st in d.synthesis.circuit.stages:
+            loop = req.opamp.a0 / (1 + st.r_feedback_ohm / st.r_gain_ohm)
+            assert loop >= 0.9 * design.LOOP_GAIN_MIN
     assert d.status == "target_not_met"
     assert [code for code, _ in d.notes] == ["output_beyond_window"]
     # The premise, against the checks themselves: every count auto mode would weigh either

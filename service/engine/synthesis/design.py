@@ -817,6 +817,25 @@ def output_beyond_window(req: DesignRequest) -> tuple[float, float] | None:
     return (need, window) if need > window else None
 
 
+#: Loop gain at DC (A0 over the stage's noise gain) a stage keeps when auto mode designs a
+#: single count for a request that clips anyway: under 10 the open-loop gain, not the
+#: feedback network, sets the stage gain (common practice).
+LOOP_GAIN_MIN = 10.0
+
+
+def _count_for_clipping(req: DesignRequest) -> int:
+    """The one stage count designed when the output is beyond the window: the fewest auto
+    mode tries whose noise gain per stage is at most ``A0 / LOOP_GAIN_MIN``, else the most
+    it tries (``best_reach`` when it tries none)."""
+    counts = stage_counts_to_try(req)
+    if not counts:
+        return best_reach(req)
+    g_max = req.opamp.a0 / LOOP_GAIN_MIN
+    fit = [n for n in counts
+           if ideal.noise_gain(req.target.gain ** (1.0 / n), req.topology) <= g_max]
+    return fit[0] if fit else counts[-1]
+
+
 def judge_synthesis(req: DesignRequest, syn: Synthesis, *, startup: bool = True) -> Judgement:
     """The verdict on a synthesised circuit at the request's conditions, limits and
     tolerances (its predicted yield included)."""
@@ -833,7 +852,7 @@ def design(req: DesignRequest, *, check_deadline=None) -> Design:
     design meets the target and passes every check (auto); when none does, the best of
     those tried (:func:`best_of`). When the output signal alone exceeds the op-amp's whole
     output window (:func:`output_beyond_window`), no count can meet the target and auto mode
-    designs only the first count it would try (a note says so in the warnings).
+    designs only one (:func:`_count_for_clipping`; a note says so in the warnings).
 
     :param check_deadline: optional callable, called before each candidate stage count is
         synthesised; the web layer passes its compute-budget checker, which raises once the
@@ -849,9 +868,10 @@ def design(req: DesignRequest, *, check_deadline=None) -> Design:
     if req.stages is not None:
         syn = synthesize(req, req.stages)
     elif beyond is not None:
-        # no stage count can meet the target: design the one auto mode would try first
-        counts = stage_counts_to_try(req)
-        n = counts[0] if counts else best_reach(req)
+        # no stage count can meet the target: design one, the first auto mode would try
+        # whose stages keep a DC loop gain of LOOP_GAIN_MIN (their gain set by the feedback
+        # network, not by A0)
+        n = _count_for_clipping(req)
         check_deadline("design")
         syn = synthesize(req, n)
         tried[n] = (syn, judge_synthesis(req, syn, startup=False))
@@ -859,9 +879,10 @@ def design(req: DesignRequest, *, check_deadline=None) -> Design:
                   f"The output signal alone, input_peak_v x the target gain (at its lower "
                   f"tolerance), is {beyond[0]:.4g} V peak, more than the op-amp's whole "
                   f"output window of {beyond[1]:.4g} V: no stage count can pass "
-                  f"output_swing, so only {n} stage{'s' if n > 1 else ''} (the first count "
-                  "auto mode tries) were designed. Lower the gain or the input, or raise "
-                  "the supply."),)
+                  f"output_swing, so only {n} stage{'s' if n > 1 else ''} (the fewest auto "
+                  "mode tries whose stage gain leaves the op-amp a loop gain of 10) "
+                  f"{'were' if n > 1 else 'was'} designed. Lower the gain or the input, or "
+                  "raise the supply."),)
     else:
         syn = None
         first_met = None  # fewest stages meeting everything, before the band-limit rule
