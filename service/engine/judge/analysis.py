@@ -159,6 +159,7 @@ def stage_band(circuit: Circuit, k: int, peak_hz: float) -> dict:
             return None
         j = below[0]
         near = peak_hz if j == 0 else f[j - 1]
+
         def g(lf):
             return math.log(max(ratio_at(math.exp(lf)), TINY) / level)
 

@@ -494,13 +494,9 @@ def _startup_check(circuit: Circuit, system: MnaSystem, limits: Limits, run: boo
                  "discharged)" + ("" if limit is None else f"; the limit is {limit:g} s") + ".")
 
 
-def with_startup(checks: tuple, circuit: Circuit, limits: Limits) -> tuple:
-    """``checks`` (from ``run_checks(..., startup=False)``) with the start-up transient
-    computed when it was skipped: the same list ``run_checks`` gives with ``startup=True``
-    (the skipped entry has no limit, so no verdict depends on it)."""
-    return tuple(_startup_check(circuit, build(circuit), limits, True)
-                 if c.check == "startup_time" and c.detail == STARTUP_SKIPPED else c
-                 for c in checks)
+def startup_check(circuit: Circuit, limits: Limits) -> Check:
+    """The ``startup_time`` entry, transient computed (as ``run_checks`` gives it)."""
+    return _startup_check(circuit, build(circuit), limits, True)
 
 
 def input_impedance_ohm(circuit: Circuit, system: MnaSystem, f_hz: float) -> float:

@@ -12,7 +12,13 @@ from __future__ import annotations
 from dataclasses import dataclass, replace
 
 from service.engine.judge import analysis, yield_estimate
-from service.engine.judge.checks import Check, CheckContext, run_checks, with_startup
+from service.engine.judge.checks import (
+    STARTUP_SKIPPED,
+    Check,
+    CheckContext,
+    run_checks,
+    startup_check,
+)
 from service.engine.judge.supply_rejection import ripple_frequencies
 from service.engine.model.circuit import Circuit, Limits, Target
 
@@ -51,4 +57,7 @@ def with_startup_time(judgement: Judgement, circuit: Circuit, limits: Limits) ->
     """A judgement made with ``startup=False`` completed with the start-up transient: equal
     to judging again with ``startup=True`` (a skipped start-up entry has no limit, so the
     status and shortfalls stand), at the cost of the transient alone."""
-    return replace(judgement, checks=with_startup(judgement.checks, circuit, limits))
+    checks = tuple(startup_check(circuit, limits)
+                   if c.check == "startup_time" and c.detail == STARTUP_SKIPPED else c
+                   for c in judgement.checks)
+    return replace(judgement, checks=checks)

@@ -880,7 +880,8 @@ def design(req: DesignRequest, *, check_deadline=None) -> Design:
                   f"tolerance), is {beyond[0]:.4g} V peak, more than the op-amp's whole "
                   f"output window of {beyond[1]:.4g} V: no stage count can pass "
                   f"output_swing, so only {n} stage{'s' if n > 1 else ''} (the fewest auto "
-                  "mode tries whose stage gain leaves the op-amp a loop gain of 10) "
+                  f"mode tries whose stage gain leaves the op-amp a loop gain of "
+                  f"{LOOP_GAIN_MIN:g}) "
                   f"{'were' if n > 1 else 'was'} designed. Lower the gain or the input, or "
                   "raise the supply."),)
     else:
@@ -917,8 +918,8 @@ def design(req: DesignRequest, *, check_deadline=None) -> Design:
     n = syn.circuit.n_stages
     judged = tried.get(n)
     syn = replace(syn, as_built=as_built(syn.circuit))  # with the per-stage figures
-    if judged is not None and judged[0].circuit == syn.circuit:
-        # the loop judged this circuit without its start-up transient: complete that one
+    if judged is not None:
+        # the search judged this circuit without its start-up transient: complete that one
         judgement = with_startup_time(judged[1], syn.circuit, req.limits)
     else:
         judgement = judge_synthesis(req, syn)
